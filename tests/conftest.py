@@ -1,0 +1,16 @@
+"""Shared fixtures: the bundled plant FMUs, built once per test session."""
+
+from __future__ import annotations
+
+from pathlib import Path
+
+import pytest
+
+from linobs.model.bundled import BUNDLED_PLANTS, bundled_fmu
+
+
+@pytest.fixture(scope="session")
+def bundled_fmus(tmp_path_factory: pytest.TempPathFactory) -> dict[str, Path]:
+    """Name -> path of each bundled plant's FMU, built into a session cache folder."""
+    cache = tmp_path_factory.mktemp("linobs-cache")
+    return {name: bundled_fmu(name, cache=cache) for name in BUNDLED_PLANTS}
