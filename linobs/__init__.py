@@ -1,0 +1,33 @@
+"""linobs: operating-envelope linearization, observability and scheduled estimators for FMUs.
+
+Public API
+----------
+load_model
+    Import an FMI 2.0 / 3.0 model-exchange FMU as a :class:`Model`.
+linearize
+    The local model (A, B, C, D) at an operating point, as a :class:`LinearModel`.
+resolve_point
+    Turn a name -> value mapping into a full :class:`OperatingPoint`.
+build_fmu, bundled_fmu
+    Compile C-source FMUs; the bundled demo plants.
+"""
+
+from __future__ import annotations
+
+from linobs.errors import LinobsError
+from linobs.linear.linear_model import LinearModel
+from linobs.linear.linearize import linearize
+from linobs.model.build import build_fmu
+from linobs.model.bundled import BUNDLED_PLANTS, bundled_fmu
+from linobs.model.catalogue import Capabilities, Catalogue, Variable
+from linobs.model.instance import Model
+from linobs.model.loader import load_model
+from linobs.operating.point import OperatingPoint, resolve_point
+
+__version__ = "0.1.0"
+
+__all__ = [
+    "BUNDLED_PLANTS", "Capabilities", "Catalogue", "LinearModel", "LinobsError", "Model",
+    "OperatingPoint", "Variable", "build_fmu", "bundled_fmu", "linearize", "load_model",
+    "resolve_point",
+]

@@ -1,0 +1,140 @@
+"""The ``linobs`` command line.
+
+Errors a user can cause print one line and exit 1 (model or data) or 2
+(usage); ``--debug`` shows the traceback instead.
+"""
+
+from __future__ import annotations
+
+import json
+import sys
+from collections.abc import Iterator
+from contextlib import contextmanager
+from pathlib import Path
+from typing import Annotated, Optional
+
+import typer
+from rich.console import Console
+from rich.markup import escape
+
+from linobs.errors import LinobsError, UsageError
+
+app = typer.Typer(add_completion=False, no_args_is_help=True, pretty_exceptions_enable=False,
+                  help="Operating-envelope linearization, observability and scheduled estimators "
+                       "for FMI model-exchange units.")
+console = Console()
+err_console = Console(stderr=True)
+_state = {"debug": False}
+
+
+@app.callback()
+def _main(debug: Annotated[bool, typer.Option("--debug", help="Show tracebacks on errors.")] = False
+          ) -> None:
+    _state["debug"] = debug
+
+
+@contextmanager
+def _errors() -> Iterator[None]:
+    try:
+        yield
+    except LinobsError as exc:
+        if _state["debug"]:
+            raise
+        err_console.print(f"[red]error:[/red] {escape(str(exc))}", highlight=False, soft_wrap=True)
+        raise typer.Exit(exc.exit_code) from None
+
+
+def _echo_json(data: object) -> None:
+    sys.stdout.write(json.dumps(data, indent=2) + "\n")
+
+
+@app.command()
+def describe(
+    model_path: Annotated[Path, typer.Argument(metavar="MODEL.fmu", help="The FMU file.")],
+    as_json: Annotated[bool, typer.Option("--json", help="Machine-readable output.")] = False,
+) -> None:
+    """Show the FMU's variables by role and its capabilities."""
+    from linobs.model.loader import load_model
+    from linobs.report.console import print_description
+
+    with _errors():
+        with load_model(model_path) as model:
+            if as_json:
+                cat = model.catalogue
+                _echo_json({
+                    "model_name": model.model_name, "guid": model.guid, "sha256": model.sha256,
+                    "capabilities": model.capabilities.model_dump(),
+                    **{role: [v.model_dump() for v in getattr(cat, role)]
+                       for role in ("states", "derivatives", "inputs", "outputs", "parameters")},
+                })
+            else:
+                print_description(console, model)
+
+
+@app.command()
+def linearize(
+    model_path: Annotated[Path, typer.Argument(metavar="MODEL.fmu", help="The FMU file.")],
+    at: Annotated[Optional[list[str]], typer.Option(
+        "--at", metavar="NAME=VALUE",
+        help="Operating-point value of a state, input or parameter (repeatable).")] = None,
+    method: Annotated[str, typer.Option(
+        "--method", help="auto | forward | central | exact")] = "auto",
+    allow_outside_bounds: Annotated[bool, typer.Option(
+        "--allow-outside-bounds", help="Accept values outside the declared min/max.")] = False,
+    as_json: Annotated[bool, typer.Option("--json", help="Machine-readable output.")] = False,
+) -> None:
+    """Linearize the FMU at one operating point: A, B, C, D with error estimates."""
+    from linobs.model.loader import load_model
+    from linobs.operating.point import parse_assignment
+    from linobs.report.console import print_linear_model
+
+    with _errors():
+        point = dict(parse_assignment(a) for a in (at or []))
+        with load_model(model_path) as model:
+            lm = model.linearize(point, method=method, allow_outside_bounds=allow_outside_bounds)
+            if as_json:
+                _echo_json(lm.cli_dict())
+            else:
+                print_linear_model(console, lm, [v.name for v in model.catalogue.derivatives])
+
+
+@app.command("build-fmu")
+def build_fmu_command(
+    source: Annotated[Path, typer.Argument(
+        metavar="SRC_DIR", help="Folder with modelDescription.xml and sources/*.c, "
+                                "or a source FMU (.fmu with sources/).")],
+    output: Annotated[Path, typer.Option("-o", "--output", metavar="OUT.fmu",
+                                         help="The FMU to write.")],
+) -> None:
+    """Compile a C-source FMU with the system C compiler into a standard .fmu."""
+    from linobs.model.build import build_fmu, build_from_source_fmu
+
+    with _errors():
+        if source.is_file() and source.suffix.lower() == ".fmu":
+            path = build_from_source_fmu(source, output)
+        elif source.is_dir():
+            path = build_fmu(source, output)
+        else:
+            raise UsageError(f"{source}: expected a folder with modelDescription.xml and sources/, "
+                             f"or a source .fmu")
+        console.print(f"wrote {path}")
+
+
+@app.command()
+def demo(
+    out: Annotated[Optional[Path], typer.Option(
+        "--out", help="Folder for the demo's results (default: a folder in the cache).")] = None,
+) -> None:
+    """Run the bundled lithium iron phosphate cell demo."""
+    from linobs.demo import run_demo
+
+    with _errors():
+        run_demo(console, out)
+
+
+def main() -> None:  # pragma: no cover - console entry point
+    app()
+
+
+if __name__ == "__main__":  # pragma: no cover
+    main()

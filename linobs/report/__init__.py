@@ -1,0 +1,1 @@
+"""Console tables, figures and the HTML report."""
