@@ -99,3 +99,10 @@ def test_console_script_and_debug_flag(tmp_path: Path) -> None:
     assert plain.returncode == 1 and "Traceback" not in plain.stderr
     debug = subprocess.run([*cmd, "--debug", "describe", str(bogus)], capture_output=True, text=True)
     assert debug.returncode != 0 and "Traceback" in debug.stderr
+
+
+def test_example_script_runs() -> None:
+    script = Path(__file__).resolve().parents[1] / "examples" / "linearize_point.py"
+    result = subprocess.run([sys.executable, str(script)], capture_output=True, text=True, timeout=120)
+    assert result.returncode == 0, result.stderr
+    assert "d v_term / d soc" in result.stdout
