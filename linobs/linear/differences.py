@@ -49,7 +49,8 @@ class Differencing:
 
     def __init__(self, model: "Model", x0: np.ndarray, u0: np.ndarray, f0: np.ndarray,
                  z0: np.ndarray | None, values: np.ndarray, nominal: np.ndarray, columns: list,
-                 relative_step: float | None, warnings: list[str], refine: bool = True) -> None:
+                 relative_step: float | None, warnings: list[str], refine: bool = True,
+                 active: np.ndarray | None = None) -> None:
         self.model, self.x0, self.u0, self.f0, self.z0 = model, x0, u0, f0, z0
         self.values, self.nominal, self.columns = values, nominal, columns
         self.relative_step = relative_step
@@ -58,6 +59,7 @@ class Differencing:
         self.refined: list[int] = []
         self.refine = refine
         self.empty_checked = False
+        self.active = np.ones(len(columns), dtype=bool) if active is None else active
         self.nx = model.nx
 
     # ------------------------------------------------------------ evaluation
@@ -85,9 +87,12 @@ class Differencing:
         ncols = len(self.columns)
         h = step_sizes(self.values, self.nominal, order, self.relative_step)
         default = "forward" if order == 1 else "central"
-        scheme_of = [self._scheme_within_bounds(j, default, h[j]) for j in range(ncols)]
+        scheme_of = [self._scheme_within_bounds(j, default, h[j]) if self.active[j] else "skipped"
+                     for j in range(ncols)]
         groups: list[_Group] = []
         for name in dict.fromkeys(scheme_of):
+            if name == "skipped":
+                continue
             cols = [j for j in range(ncols) if scheme_of[j] == name]
             for sub in colour_columns(pattern[:, cols]):
                 members = [cols[g] for g in sub]
@@ -117,7 +122,7 @@ class Differencing:
             for j in g.members:
                 scheme_of[j] = g.scheme.name
         for j in range(ncols):
-            if not pattern[:, j].any():
+            if self.active[j] and not pattern[:, j].any():
                 scheme_of[j] = "structural-zero"
         return J, err, scheme_of, len(groups) + (1 if self.empty_checked else 0), h
 
@@ -127,7 +132,7 @@ class Differencing:
         An input or state that the model structure says affects nothing costs one
         evaluation to confirm; a change means the dependency information is wrong.
         """
-        empty = [j for j in range(pattern.shape[1]) if not pattern[:, j].any()]
+        empty = [j for j in range(pattern.shape[1]) if self.active[j] and not pattern[:, j].any()]
         self.empty_checked = bool(empty)
         if not empty:
             return
@@ -283,14 +288,14 @@ class Differencing:
     def exact(self, pattern: np.ndarray
               ) -> tuple[np.ndarray, np.ndarray, list[str], int, np.ndarray]:
         ncols = len(self.columns)
-        groups = colour_columns(pattern)
-        empty = [j for j in range(ncols) if not pattern[:, j].any()]
+        groups = colour_columns(pattern & self.active[None, :])
+        empty = [j for j in range(ncols) if self.active[j] and not pattern[:, j].any()]
         seeds = np.zeros((len(groups) + (1 if empty else 0), ncols))
         for g, members in enumerate(groups):
             seeds[g, members] = 1.0
         if empty:  # one extra call confirms that the structurally empty columns are empty
             seeds[-1, empty] = 1.0
-        R = self.model.directional_derivatives(seeds[:, :self.nx], seeds[:, self.nx:], self.x0, self.u0) \
+        R = self.model.directional_derivatives(seeds[:, :self.nx], seeds[:, self.nx:]) \
             if len(seeds) else np.zeros((0, len(self.f0)))
         J = np.zeros((len(self.f0), ncols))
         self.leaked = []
@@ -304,7 +309,8 @@ class Differencing:
         if empty:
             self.leaked.extend((int(i), tuple(empty)) for i in np.flatnonzero(R[-1] != 0.0))
         err = EPS * np.abs(J)
-        schemes = ["exact" if pattern[:, j].any() else "structural-zero" for j in range(ncols)]
+        schemes = ["skipped" if not self.active[j] else "exact" if pattern[:, j].any()
+                   else "structural-zero" for j in range(ncols)]
         if self.z0 is not None and len(self.z0):
             self._check_surfaces_exact(groups)
         return J, err, schemes, len(seeds), np.zeros(ncols)

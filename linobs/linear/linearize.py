@@ -28,7 +28,7 @@ second-order weights).
 
 from __future__ import annotations
 
-from collections.abc import Mapping
+from collections.abc import Mapping, Sequence
 from typing import TYPE_CHECKING
 
 import numpy as np
@@ -47,7 +47,8 @@ METHODS = ("auto", "forward", "central", "exact")
 
 def linearize(model: "Model", point: Mapping[str, float] | None = None, method: str = "auto", *,
               allow_outside_bounds: bool = False, use_structure: bool = True,
-              relative_step: float | None = None, refine: bool = True) -> LinearModel:
+              relative_step: float | None = None, refine: bool = True,
+              columns: Sequence[str] | None = None) -> LinearModel:
     """Linearize ``model`` at an operating point.
 
     Parameters
@@ -70,6 +71,9 @@ def linearize(model: "Model", point: Mapping[str, float] | None = None, method: 
         Second-order schemes only: where the stencil's own second difference
         shows truncation dominating rounding, repeat that column group once with
         the error-balancing step (two more evaluations per refined group).
+    columns
+        Only these states/inputs are differenced (e.g. a trim's unknowns); the
+        other columns are left zero and marked ``skipped``.
 
     Returns
     -------
@@ -97,7 +101,16 @@ def linearize(model: "Model", point: Mapping[str, float] | None = None, method: 
     f0 = np.concatenate([dx0, y0])
     values = np.concatenate([x0, u0])
     cat = model.catalogue
+    columns_wanted = None if columns is None else list(columns)
     columns = list(cat.states) + list(cat.inputs)
+    active = None
+    if columns_wanted is not None:
+        names = [v.name for v in columns]
+        for name in columns_wanted:
+            if name not in names:
+                var = cat.get(name)  # unknown names: suggestion; others: not a state/input
+                raise UsageError(f"{name!r} is a {var.role}; only states and inputs are Jacobian columns")
+        active = np.array([n in columns_wanted for n in names])
     nominal = np.concatenate([model.x_nominal, model.u_nominal])
 
     pattern = structural_pattern(model) if use_structure else None
@@ -107,7 +120,7 @@ def linearize(model: "Model", point: Mapping[str, float] | None = None, method: 
     warnings: list[str] = []
 
     job = Differencing(model, x0, u0, f0, z0, values, nominal, columns, relative_step, warnings,
-                       refine)
+                       refine, active)
     if method == "exact":
         J, err, schemes, groups, steps = job.exact(pattern)
         if job.leaked:

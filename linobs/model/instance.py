@@ -247,6 +247,9 @@ class Model:
         self.evaluations += done + (1 if done < X.shape[0] else 0)
         if done < X.shape[0]:
             self._raise_failure(X[done], U[done])
+        if len(X):  # the instance now sits at the last point
+            self._xb[:] = X[-1]
+            self._ub[:] = U[-1]
         return DX, Y, Z
 
     def event_indicators(self, x: np.ndarray, u: np.ndarray) -> np.ndarray:
@@ -288,18 +291,23 @@ class Model:
         raise EvaluationError(message, point=point, status=status, log=log)
 
     # --------------------------------------------------------- directional derivatives
-    def directional_derivatives(self, seeds_x: np.ndarray, seeds_u: np.ndarray, x: np.ndarray,
-                                u: np.ndarray) -> np.ndarray:
+    def directional_derivatives(self, seeds_x: np.ndarray, seeds_u: np.ndarray,
+                                x: np.ndarray | None = None, u: np.ndarray | None = None
+                                ) -> np.ndarray:
         """Exact Jacobian-vector products of (dx, y) along each seed (rows), at (x, u).
 
         Uses the FMU's ``GetDirectionalDerivative``; each row costs one FMU call
         with all states and inputs as knowns and all derivatives and outputs as
-        unknowns.  Returns an array of shape (k, nx + ny).
+        unknowns.  Without ``x`` and ``u`` the point of the last evaluation is
+        used (no extra evaluation).  Returns an array of shape (k, nx + ny).
         """
         if not self.capabilities.directional_derivatives:
             raise UsageError(f"{self.model_name} does not provide directional derivatives; use "
                              f"method 'central' or 'forward'")
-        self.evaluate(x, u)  # sets the point
+        if x is not None and u is not None:
+            self.evaluate(x, u)  # sets the point
+        else:
+            x, u = self._xb.copy(), self._ub.copy()
         cat = self.catalogue
         key = (self.nx, self.ny)
         if key not in self._dd:
@@ -349,6 +357,10 @@ class Model:
     def log(self) -> list[str]:
         """Recent messages the FMU logged."""
         return list(self._binding.log)
+
+    def clear_log(self) -> None:
+        """Forget the messages logged so far (errors then quote only what follows)."""
+        self._binding.log.clear()
 
     def variable(self, name: str) -> Variable:
         return self.catalogue.get(name)
