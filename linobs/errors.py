@@ -41,6 +41,10 @@ class InstantiationError(ModelError):
     """The FMU refused to instantiate or initialise."""
 
 
+class StudyError(UsageError):
+    """A study file that is missing, not TOML, or malformed (one problem per line)."""
+
+
 class UnknownVariableError(UsageError):
     """A variable name that the model does not declare."""
 
