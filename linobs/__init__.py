@@ -10,6 +10,10 @@ resolve_point
     Turn a name -> value mapping into a full :class:`OperatingPoint`.
 build_fmu, bundled_fmu
     Compile C-source FMUs; the bundled demo plants.
+load_study, run_study
+    Read a study file; run its stages into a run folder.
+trim
+    Partial trim at one operating point.
 """
 
 from __future__ import annotations
@@ -23,11 +27,23 @@ from linobs.model.catalogue import Capabilities, Catalogue, Variable
 from linobs.model.instance import Model
 from linobs.model.loader import load_model
 from linobs.operating.point import OperatingPoint, resolve_point
+from linobs.operating.trim import trim
+from linobs.operating.trim_spec import TrimResult, TrimSpec
 
 __version__ = "0.1.0"
 
 __all__ = [
     "BUNDLED_PLANTS", "Capabilities", "Catalogue", "LinearModel", "LinobsError", "Model",
     "OperatingPoint", "Variable", "build_fmu", "bundled_fmu", "linearize", "load_model",
-    "resolve_point",
+    "resolve_point", "trim", "TrimResult", "TrimSpec", "load_study", "run_study",
 ]
+
+
+def __getattr__(name: str) -> object:  # heavier entry points load on first use
+    if name == "run_study":
+        from linobs.pipeline import run_study
+        return run_study
+    if name == "load_study":
+        from linobs.study import load_study
+        return load_study
+    raise AttributeError(f"module 'linobs' has no attribute {name!r}")

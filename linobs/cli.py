@@ -120,6 +120,42 @@ def build_fmu_command(
         console.print(f"wrote {path}")
 
 
+@app.command("study-schema")
+def study_schema_command() -> None:
+    """Print the JSON Schema of the study file."""
+    from linobs.study import study_schema
+
+    _echo_json(study_schema())
+
+
+@app.command()
+def run(
+    study_path: Annotated[Path, typer.Argument(metavar="STUDY.toml", help="The study file.")],
+    out: Annotated[Path, typer.Option("--out", metavar="RUN_DIR", help="Run folder (created).")],
+    workers: Annotated[Optional[int], typer.Option(
+        "--workers", min=1, help="Local worker processes (default: one per core).")] = None,
+    dask: Annotated[Optional[str], typer.Option(
+        "--dask", metavar="ADDRESS", help="Send the work to this Dask scheduler.")] = None,
+    dask_local: Annotated[Optional[int], typer.Option(
+        "--dask-local", metavar="N", min=1, help="Start a local Dask cluster of N workers.")] = None,
+    resume: Annotated[bool, typer.Option(
+        "--resume", help="Continue the run in RUN_DIR; compute only what is missing.")] = False,
+    until: Annotated[Optional[str], typer.Option(
+        "--until", metavar="STAGE", help="Last stage to run (sweep).")] = None,
+) -> None:
+    """Run a study: sweep the grid (trim + linearize at every point) into RUN_DIR."""
+    from linobs.pipeline import run_study
+    from linobs.report.console import print_run_summary, run_progress
+
+    with _errors():
+        if dask and dask_local:
+            raise UsageError("give either --dask ADDRESS or --dask-local N, not both")
+        with run_progress(console) as (progress, on_stage):
+            summary = run_study(study_path, out, workers=workers, dask=dask, dask_local=dask_local,
+                                resume=resume, until=until, progress=progress, on_stage=on_stage)
+        print_run_summary(console, summary, out)
+
+
 @app.command()
 def demo(
     out: Annotated[Optional[Path], typer.Option(

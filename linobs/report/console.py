@@ -2,11 +2,15 @@
 
 from __future__ import annotations
 
-from collections.abc import Sequence
+from collections.abc import Callable, Iterator, Sequence
+from contextlib import contextmanager
+from typing import Any
 
 import numpy as np
 from rich.console import Console
 from rich.markup import escape
+from rich.progress import (BarColumn, MofNCompleteColumn, Progress, TextColumn,
+                           TimeRemainingColumn)
 from rich.table import Table
 
 from linobs.linear.linear_model import LinearModel
@@ -84,3 +88,37 @@ def print_linear_model(console: Console, lm: LinearModel, derivative_names: Sequ
     console.print(f"  estimated relative error of the non-zero entries: ≤ {worst:.1e}")
     for w in lm.warnings:
         console.print(f"[yellow]warning:[/yellow] {escape(w)}")
+
+
+@contextmanager
+def run_progress(console: Console) -> Iterator[tuple[Callable[[Any], None], Callable[[str, int, int], None]]]:
+    """A rich progress bar for ``linobs run``: points/s, ETA and failure counts."""
+    columns = (TextColumn("{task.description}"), BarColumn(), MofNCompleteColumn(),
+               TextColumn("{task.fields[rate]}"), TimeRemainingColumn(),
+               TextColumn("{task.fields[problems]}"))
+    with Progress(*columns, console=console, transient=False) as bar:
+        task: dict[str, Any] = {}
+
+        def on_stage(stage: str, total: int, done: int) -> None:
+            task["id"] = bar.add_task(stage, total=total, completed=done, rate="", problems="")
+
+        def on_progress(state: Any) -> None:
+            bad = {k: v for k, v in state.counts.items() if k != "ok" and v}
+            problems = ", ".join(f"{v} {k.replace('_', ' ')}" for k, v in bad.items())
+            bar.update(task["id"], completed=state.done, rate=f"{state.rate:.0f} points/s",
+                       problems=problems)
+
+        yield on_progress, on_stage
+
+
+def print_run_summary(console: Console, summary: Any, run_dir: Any) -> None:
+    table = Table(title="run summary", title_justify="left", show_edge=False)
+    for col in ("stage", "points", "ok", "not conv.", "failed", "crashed", "evals/point", "s"):
+        table.add_column(col, justify="left" if col == "stage" else "right")
+    for name, s in summary.stages.items():
+        per_point = s.evaluations / s.points if s.points else 0.0
+        table.add_row(name, str(s.points), str(s.ok), str(s.not_converged), str(s.failed),
+                      str(s.crashed), f"{per_point:.1f}", f"{s.seconds:.1f}")
+    console.print(table)
+    console.print(f"  wrote {escape(str(run_dir))}/summary.json and run.sqlite")
+    console.print(f"[dim]Caution: {escape(summary.caution)}[/dim]")
