@@ -21,6 +21,7 @@ import zipfile
 from pathlib import Path
 from typing import Iterable, Sequence
 
+from linobs.atomic import DEFAULT_MODE
 from linobs.errors import BuildError, CompilerNotFoundError, FMUFileError
 
 __all__ = ["CSUPPORT_DIR", "build_fmu", "build_from_source_fmu", "find_c_compiler",
@@ -160,6 +161,7 @@ def _write_archive(output: Path, members: list[tuple[str, Path]]) -> None:
     fd, tmp_name = tempfile.mkstemp(prefix=f".{output.name}.", suffix=".tmp", dir=output.parent)
     tmp = Path(tmp_name)
     try:
+        os.chmod(tmp, DEFAULT_MODE)  # an ordinary file, not mkstemp's 0600
         with os.fdopen(fd, "wb") as raw:
             with zipfile.ZipFile(raw, "w", zipfile.ZIP_DEFLATED) as zf:
                 for arcname, path in members:
