@@ -9,12 +9,15 @@ state of charge under load) and y0 = g(x0, u0).
 
 from __future__ import annotations
 
-from typing import Any
+from typing import TYPE_CHECKING, Any
 
 import numpy as np
 from pydantic import BaseModel, ConfigDict, Field
 
 from linobs.types import Matrix, Vector
+
+if TYPE_CHECKING:  # typing only: linear must not import observability at run time
+    from linobs.observability.report import ObservabilityReport, ObservabilitySettings
 
 
 class JacobianErrors(BaseModel):
@@ -102,6 +105,19 @@ class LinearModel(BaseModel):
         """The keys of ``linobs linearize --json`` (plus extras)."""
         data = self.model_dump(mode="json")
         return data
+
+    def observability(self, settings: ObservabilitySettings | None = None, *,
+                      outputs: list[str] | None = None) -> ObservabilityReport:
+        """Observability of this local model: an ``ObservabilityReport``.
+
+        See :func:`linobs.observability.analysis.analyse`; ``settings`` is an
+        ``ObservabilitySettings`` (default thresholds when None) and ``outputs``
+        the measured outputs (default: every output).
+        """
+        # linear -> observability: imported lazily, never at module level
+        from linobs.observability.analysis import analyse
+
+        return analyse(self, settings, outputs=outputs)
 
     def to_statespace(self) -> Any:
         """A python-control ``StateSpace`` (needs the optional ``control`` extra)."""
