@@ -141,9 +141,9 @@ def run(
     resume: Annotated[bool, typer.Option(
         "--resume", help="Continue the run in RUN_DIR; compute only what is missing.")] = False,
     until: Annotated[Optional[str], typer.Option(
-        "--until", metavar="STAGE", help="Last stage to run (sweep).")] = None,
+        "--until", metavar="STAGE", help="Last stage to run: sweep or observability (default: all).")] = None,
 ) -> None:
-    """Run a study: sweep the grid (trim + linearize at every point) into RUN_DIR."""
+    """Run a study into RUN_DIR: sweep the grid (trim + linearize), then map observability."""
     from linobs.pipeline import run_study
     from linobs.report.console import print_run_summary, run_progress
 

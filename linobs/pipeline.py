@@ -10,7 +10,7 @@ from __future__ import annotations
 
 import os
 import time
-from collections.abc import Callable
+from collections.abc import Callable, Sequence
 from pathlib import Path
 from typing import Any
 
@@ -21,20 +21,23 @@ from linobs.atomic import atomic_write_json
 from linobs.errors import UsageError
 from linobs.run.executor import make_executor
 from linobs.run.store import RunStore
-from linobs.run.types import STATUSES, FMURef, Progress, ProgressCallback
+from linobs.run.types import STATUSES, Chunk, FMURef, Progress, ProgressCallback, Task
 from linobs.stages import sweep
 from linobs.study import Study, load_study, study_hash
 
-STAGES: tuple[str, ...] = ("sweep",)
-"""Stages in order; later issues add observability, design, validate and export."""
+STAGES: tuple[str, ...] = ("sweep", "observability")
+"""Stages in order; later issues add design, validate and export."""
+LATER_STAGES: tuple[str, ...] = ("design", "validate", "export")
 
 CAUTION = ("linobs results are engineering aids: verify them in simulation, hardware-in-the-loop "
            "and test, by qualified engineers, under the applicable functional-safety standards, "
            "local codes and licensed practice.")
 
+StageCallback = Callable[[str, int, int], None]
+
 
 class StageSummary(BaseModel):
-    """Counts of one stage."""
+    """Counts of one stage (or sub-stage)."""
 
     points: int
     ok: int = 0
@@ -44,6 +47,7 @@ class StageSummary(BaseModel):
     evaluations: int = 0
     seconds: float = Field(0.0, description="wall time spent in this stage, over all invocations")
     computed_now: int = Field(0, description="points computed by this invocation (the rest resumed)")
+    counts: dict[str, int] = Field(default_factory=dict, description="stage-specific counts")
 
 
 class RunSummary(BaseModel):
@@ -63,6 +67,15 @@ class RunSummary(BaseModel):
     not_converged: int
     evaluations: int
     seconds: float
+    observable: int | None = None
+    weak: int | None = None
+    unobservable_detectable: int | None = None
+    unobservable: int | None = None
+    boundary_points: int | None = None
+    empirical_checked: int | None = None
+    empirical_disagreements: int | None = None
+    regions: list[str] | None = Field(None, description="where observability is lost or weak")
+    files: dict[str, str] = Field(default_factory=dict, description="files written, by role")
     caution: str = CAUTION
 
 
@@ -75,7 +88,7 @@ def run_study(study: Study | str | os.PathLike[str], out: str | os.PathLike[str]
               workers: int | None = None, dask: str | None = None, dask_local: int | None = None,
               resume: bool = False, until: str | None = None,
               progress: ProgressCallback | None = None,
-              on_stage: Callable[[str, int, int], None] | None = None) -> RunSummary:
+              on_stage: StageCallback | None = None) -> RunSummary:
     """Run the study's stages into ``out`` and return the summary.
 
     Parameters
@@ -104,80 +117,119 @@ def run_study(study: Study | str | os.PathLike[str], out: str | os.PathLike[str]
     run_dir = Path(out)
     run_dir.mkdir(parents=True, exist_ok=True)
     store = RunStore.open(run_dir, _identity(study), resume=resume)
+    summaries: dict[str, StageSummary] = {}
+    files: dict[str, str] = {}
     try:
         with make_executor(workers=workers, dask=dask, dask_local=dask_local) as executor:
-            summaries = {}
-            for stage in stages:
-                summaries[stage] = _run_sweep(study, store, executor, progress, on_stage)
-            summary = _summary(study, store, summaries, executor)
+            runner = _Runner(study, store, executor, progress, on_stage)
+            summaries["sweep"] = runner.sweep()
+            if "observability" in stages:
+                from linobs.stages.observability_run import run_observability
+
+                summaries.update(run_observability(runner, run_dir, files))
+            summary = _summary(study, summaries, executor, files)
     finally:
         store.close()
-    atomic_write_json(run_dir / "summary.json", summary.model_dump(mode="json"))
+    atomic_write_json(run_dir / "summary.json", summary.model_dump(mode="json", exclude_none=True))
     return summary
 
 
 def _stages_until(until: str | None) -> tuple[str, ...]:
     if until is None:
         return STAGES
-    later = ("observability", "design", "validate", "export")
-    if until in later:
+    if until in LATER_STAGES:
         raise UsageError(f"stage {until!r} is not available in this version; available: "
                          f"{', '.join(STAGES)}")
     if until not in STAGES:
-        raise UsageError(f"unknown stage {until!r}; stages in order: {', '.join(STAGES + later)}")
+        raise UsageError(f"unknown stage {until!r}; stages in order: "
+                         f"{', '.join(STAGES + LATER_STAGES)}")
     return STAGES[: STAGES.index(until) + 1]
 
 
-def _workers_of(executor: Any) -> int:
-    return int(getattr(executor, "workers", None) or os.cpu_count() or 1)
+class _Runner:
+    """Runs chunks of a stage on the executor into the store, with progress and resume."""
+
+    def __init__(self, study: Study, store: RunStore, executor: Any,
+                 progress: ProgressCallback | None, on_stage: StageCallback | None) -> None:
+        self.study, self.store, self.executor = study, store, executor
+        self.progress, self.on_stage = progress, on_stage
+        self.fmu = FMURef(study.fmu_sha256, str(study.fmu_path))
+
+    @property
+    def workers(self) -> int:
+        return int(getattr(self.executor, "workers", None) or os.cpu_count() or 1)
+
+    def execute(self, stage: str, task: Task, chunks: Sequence[Chunk], total: int) -> StageSummary:
+        """Run ``chunks`` (the missing part of a stage of ``total`` items) and summarise it."""
+        store = self.store
+        done = total - sum(len(c.items) for c in chunks)
+        if self.on_stage is not None:
+            self.on_stage(stage, total, done)
+        state = Progress(total=total, done=done)
+        for status, n in store.counts(stage).items():
+            state.counts[status] = n
+        t0 = time.perf_counter()
+        computed = 0
+
+        def on_chunk(chunk: Chunk, results: list[Any]) -> None:
+            nonlocal computed
+            store.write_chunk(stage, chunk.chunk_id, results)
+            computed += len(results)
+            state.done += len(results)
+            for r in results:
+                state.counts[r.status] = state.counts.get(r.status, 0) + 1
+            state.seconds = time.perf_counter() - t0
+            if self.progress is not None:
+                self.progress(state)
+
+        if chunks:
+            self.executor.run(task, list(chunks), fmus=[self.fmu], on_chunk=on_chunk,
+                              total=sum(len(c.items) for c in chunks))
+        return self.finish(stage, total, time.perf_counter() - t0, computed)
+
+    def finish(self, stage: str, total: int, elapsed: float, computed: int,
+               counts: dict[str, int] | None = None) -> StageSummary:
+        previous = self.store.stage_info(stage) or {}
+        status_counts = self.store.counts(stage)
+        results = self.store.results(stage)
+        summary = StageSummary(points=total, evaluations=sum(r.evaluations for r in results),
+                               seconds=float(previous.get("seconds", 0.0)) + elapsed,
+                               computed_now=computed, counts=counts or {},
+                               **{s: status_counts.get(s, 0) for s in STATUSES})
+        self.store.mark_stage_complete(stage, summary.model_dump(mode="json"))
+        return summary
+
+    def sweep(self) -> StageSummary:
+        chunks, total = sweep.build_chunks(self.study, workers=self.workers,
+                                           done=self.store.done_ids(sweep.STAGE))
+        return self.execute(sweep.STAGE, sweep.sweep_chunk, chunks, total)
 
 
-def _run_sweep(study: Study, store: RunStore, executor: Any, progress: ProgressCallback | None,
-               on_stage: Callable[[str, int, int], None] | None) -> StageSummary:
-    stage = sweep.STAGE
-    done = store.done_ids(stage)
-    chunks, total = sweep.build_chunks(study, workers=_workers_of(executor), done=done)
-    if on_stage is not None:
-        on_stage(stage, total, len(done))
-    state = Progress(total=total, done=len(done))
-    for status, n in store.counts(stage).items():
-        state.counts[status] = n
-    t0 = time.perf_counter()
-    computed = 0
-
-    def on_chunk(chunk: Any, results: list[Any]) -> None:
-        nonlocal computed
-        store.write_chunk(stage, chunk.chunk_id, results)
-        computed += len(results)
-        state.done += len(results)
-        for r in results:
-            state.counts[r.status] = state.counts.get(r.status, 0) + 1
-        state.seconds = time.perf_counter() - t0
-        if progress is not None:
-            progress(state)
-
-    if chunks:
-        executor.run(sweep.sweep_chunk, chunks, fmus=[FMURef(study.fmu_sha256, str(study.fmu_path))],
-                     on_chunk=on_chunk, progress=None, total=sum(len(c.items) for c in chunks))
-    elapsed = time.perf_counter() - t0
-    previous = store.stage_info(stage) or {}
-    seconds = float(previous.get("seconds", 0.0)) + elapsed
-    counts = store.counts(stage)
-    results = store.results(stage)
-    summary = StageSummary(points=total, evaluations=sum(r.evaluations for r in results),
-                           seconds=seconds, computed_now=computed,
-                           **{s: counts.get(s, 0) for s in STATUSES})
-    store.mark_stage_complete(stage, summary.model_dump(mode="json"))
-    return summary
-
-
-def _summary(study: Study, store: RunStore, stages: dict[str, StageSummary], executor: Any
-             ) -> RunSummary:
-    first = stages[STAGES[0]]
+def _summary(study: Study, stages: dict[str, StageSummary], executor: Any,
+             files: dict[str, str]) -> RunSummary:
+    first = stages["sweep"]
+    extra: dict[str, Any] = {}
+    obs = stages.get("observability")
+    if obs is not None:
+        for key in ("observable", "weak", "unobservable_detectable", "unobservable"):
+            extra[key] = obs.counts.get(key, 0)
+        extra["boundary_points"] = stages["observability-boundary"].ok \
+            if "observability-boundary" in stages else 0
+        emp = stages.get("observability-empirical")
+        extra["empirical_checked"] = emp.ok if emp else 0
+        extra["empirical_disagreements"] = emp.counts.get("disagree", 0) if emp else 0
+        extra["regions"] = _regions_text(files)
     return RunSummary(
         study=str(study.path), study_hash=study_hash(study), fmu=str(study.fmu_path),
         fmu_sha256=study.fmu_sha256, linobs_version=linobs.__version__,
         executor=type(executor).__name__, stages=stages, points=first.points, ok=first.ok,
         failed=first.failed, crashed=first.crashed, not_converged=first.not_converged,
         evaluations=sum(s.evaluations for s in stages.values()),
-        seconds=sum(s.seconds for s in stages.values()))
+        seconds=sum(s.seconds for s in stages.values()), files=files, **extra)
+
+
+def _regions_text(files: dict[str, str]) -> list[str]:
+    path = files.get("regions_text")
+    if not path or not Path(path).exists():
+        return []
+    return [line for line in Path(path).read_text().splitlines() if line.strip()]

@@ -393,10 +393,39 @@ def _check_trim(ck: _Checker) -> None:
                        f"{', '.join(targets) or 'none'}); {hint}")
 
 
+def _check_observability(ck: _Checker) -> None:
+    obs = ck.config.observability
+    if obs.outputs is not None:
+        if not obs.outputs:
+            ck.add("observability.outputs", "must name at least one output (omit it to use the "
+                                            "study's measured outputs)")
+        ck.names("observability.outputs", obs.outputs, ("output",),
+                 "the observability analysis uses measured outputs")
+    ck.names("observability.candidates", obs.candidates, ("state",),
+             "candidates are states that could be measured (unmeasured outputs are candidates "
+             "anyway)")
+    axes = list(ck.config.grid.axes)
+    if obs.map_axes is not None:
+        if len(obs.map_axes) != 2 or len(set(obs.map_axes)) != 2:
+            ck.add("observability.map_axes", f"must name two different grid axes, got "
+                                             f"{obs.map_axes}")
+        for k, name in enumerate(obs.map_axes):
+            if name not in axes:
+                ck.add(f"observability.map_axes[{k}]", unknown_name_message(name, axes)
+                       .replace("the model has no variable", "the grid has no axis"))
+    for name, value in obs.map_fixed.items():
+        path = f"observability.map_fixed.{field_path([name])}"
+        if name not in axes:
+            ck.add(path, unknown_name_message(name, axes).replace("the model has no variable",
+                                                                  "the grid has no axis"))
+        elif obs.map_axes is not None and name in obs.map_axes:
+            ck.add(path, f"{name!r} is one of the map's axes; fix only the other axes")
+
+
 #: One function per section (the grid first: the others need its variables); later sections
 #: append theirs.
 CHECKS: tuple[Callable[[_Checker], None], ...] = (_check_grid, _check_model, _check_outputs,
-                                                   _check_trim)
+                                                   _check_trim, _check_observability)
 
 
 def check_against_model(config: StudyConfig, catalogue: Catalogue, base: Path

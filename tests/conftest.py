@@ -5,6 +5,12 @@ from __future__ import annotations
 from pathlib import Path
 
 import pytest
+from threadpoolctl import threadpool_limits
+
+# The tests solve many small linear-algebra problems; a multi-threaded BLAS only
+# adds synchronisation there (and oversubscribes the cores when worker processes
+# run beside the tests).  Common practice for small-matrix numerics.
+threadpool_limits(1)
 
 from linobs.model.bundled import BUNDLED_PLANTS, bundled_fmu
 

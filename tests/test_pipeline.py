@@ -68,10 +68,18 @@ def stored(run_dir: Path, stage: str = "sweep") -> dict[int, tuple[str, str, str
 def test_cell_sweep_end_to_end(tmp_path: Path) -> None:
     study_path = cell_study(tmp_path / "study")
     out = tmp_path / "run"
-    seen: list[tuple[int, int, int]] = []
-    summary = run_study(study_path, out, workers=2,
-                        progress=lambda p: seen.append((p.done, p.total, p.counts["ok"])))
-    assert seen[-1] == (32, 32, 32) and [d for d, _, _ in seen] == sorted(d for d, _, _ in seen)
+    seen: dict[str, list[tuple[int, int, int]]] = {}
+    stage = {"name": ""}
+
+    def on_stage(name: str, total: int, done: int) -> None:
+        stage["name"] = name
+        seen[name] = []
+
+    summary = run_study(study_path, out, workers=2, on_stage=on_stage,
+                        progress=lambda p: seen[stage["name"]].append((p.done, p.total, p.counts["ok"])))
+    sweep = seen["sweep"]
+    assert sweep[-1] == (32, 32, 32) and [d for d, _, _ in sweep] == sorted(d for d, _, _ in sweep)
+    assert seen["observability"][-1][:2] == (32, 32)
     data = json.loads((out / "summary.json").read_text())
     for key in SUMMARY_KEYS:
         assert key in data, key

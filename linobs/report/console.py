@@ -114,11 +114,24 @@ def run_progress(console: Console) -> Iterator[tuple[Callable[[Any], None], Call
 def print_run_summary(console: Console, summary: Any, run_dir: Any) -> None:
     table = Table(title="run summary", title_justify="left", show_edge=False)
     for col in ("stage", "points", "ok", "not conv.", "failed", "crashed", "evals/point", "s"):
-        table.add_column(col, justify="left" if col == "stage" else "right")
+        table.add_column(col, justify="left" if col == "stage" else "right",
+                         no_wrap=col == "stage")
+    shown = {"observability-boundary": "  boundary", "observability-empirical": "  nonlinear check"}
     for name, s in summary.stages.items():
         per_point = s.evaluations / s.points if s.points else 0.0
-        table.add_row(name, str(s.points), str(s.ok), str(s.not_converged), str(s.failed),
+        table.add_row(shown.get(name, name), str(s.points), str(s.ok), str(s.not_converged), str(s.failed),
                       str(s.crashed), f"{per_point:.1f}", f"{s.seconds:.1f}")
     console.print(table)
+    if summary.observable is not None:
+        console.print(
+            f"  observability: {summary.observable} observable, {summary.weak} weak, "
+            f"{summary.unobservable_detectable} unobservable but detectable, "
+            f"{summary.unobservable} unobservable; {summary.boundary_points} refined boundary "
+            f"points; nonlinear check at {summary.empirical_checked} points, "
+            f"{summary.empirical_disagreements} disagreeing with the linear verdict")
+        for line in summary.regions or []:
+            console.print(f"  - {escape(line)}")
     console.print(f"  wrote {escape(str(run_dir))}/summary.json and run.sqlite")
+    for role, path in summary.files.items():
+        console.print(f"  {role.replace('_', ' ')}: {escape(path)}")
     console.print(f"[dim]Caution: {escape(summary.caution)}[/dim]")

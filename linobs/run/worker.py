@@ -50,6 +50,21 @@ def delivery_dir() -> Path:
     return Path(tempfile.gettempdir()) / f"linobs-fmus-{user}"
 
 
+def single_threaded_blas() -> None:
+    """Limit the linear-algebra library to one thread in this process.
+
+    A worker is one core's share of a sweep, and its matrices are tiny: a
+    multi-threaded BLAS only adds synchronisation (and, when several workers
+    share the cores, oversubscription that slows small operations by an order
+    of magnitude).  Common practice for process-parallel numerics.
+    """
+    try:
+        from threadpoolctl import threadpool_limits
+    except ImportError:  # pragma: no cover - threadpoolctl is a dependency
+        return
+    threadpool_limits(1)
+
+
 class ProcessWorkerContext:
     """The :class:`~linobs.run.types.WorkerContext` of one worker process.
 
@@ -63,6 +78,7 @@ class ProcessWorkerContext:
     """
 
     def __init__(self) -> None:
+        single_threaded_blas()
         self._models: dict[str, Model] = {}
         self._start_parameters: dict[str, dict[str, float]] = {}
         self._delivered: dict[str, Path] = {}
