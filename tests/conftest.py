@@ -4,7 +4,9 @@ from __future__ import annotations
 
 from pathlib import Path
 
+import numpy  # noqa: F401  (load BLAS before limiting its threads)
 import pytest
+import scipy.linalg  # noqa: F401
 from threadpoolctl import threadpool_limits
 
 # The tests solve many small linear-algebra problems; a multi-threaded BLAS only

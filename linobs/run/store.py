@@ -127,6 +127,9 @@ class RunStore:
         self.path = run_dir / STORE_FILE
         self._db = connection
         self._lock = lock
+        # decoded results per stage, dropped when the stage is written to (the coordinator
+        # reads the sweep's results in several stages; JSON decoding dominates there)
+        self._cache: dict[str, list[ItemResult]] = {}
 
     # ------------------------------------------------------------------ opening
     @classmethod
@@ -233,6 +236,7 @@ class RunStore:
                                 f"JSON-compatible ({exc})") from None
             rows.append((stage, int(r.item_id), chunk_id, r.status, data, r.message,
                          int(r.evaluations), float(r.seconds)))
+        self._cache.pop(stage, None)
         with self._transaction():
             self._db.executemany(_UPSERT, rows)
 
@@ -254,12 +258,17 @@ class RunStore:
         return {int(i) for (i,) in rows}
 
     def results(self, stage: str) -> list[ItemResult]:
-        """Every stored result of ``stage``, by item id."""
-        rows = self._db.execute(
-            "SELECT item_id, status, data, message, evaluations, seconds FROM results "
-            "WHERE stage = ? ORDER BY item_id", (stage,))
-        return [ItemResult(item_id=int(i), status=s, data=json.loads(d), message=m,
-                           evaluations=int(e), seconds=float(t)) for i, s, d, m, e, t in rows]
+        """Every stored result of ``stage``, by item id (shared objects: read, do not modify)."""
+        cached = self._cache.get(stage)
+        if cached is None:
+            rows = self._db.execute(
+                "SELECT item_id, status, data, message, evaluations, seconds FROM results "
+                "WHERE stage = ? ORDER BY item_id", (stage,))
+            cached = [ItemResult(item_id=int(i), status=s, data=json.loads(d), message=m,
+                                 evaluations=int(e), seconds=float(t))
+                      for i, s, d, m, e, t in rows]
+            self._cache[stage] = cached
+        return list(cached)
 
     def counts(self, stage: str) -> dict[str, int]:
         """Number of stored results of ``stage`` per status (every status listed)."""
