@@ -25,9 +25,9 @@ from linobs.run.types import STATUSES, Chunk, FMURef, Progress, ProgressCallback
 from linobs.stages import sweep
 from linobs.study import Study, load_study, study_hash
 
-STAGES: tuple[str, ...] = ("sweep", "observability")
-"""Stages in order; later issues add design, validate and export."""
-LATER_STAGES: tuple[str, ...] = ("design", "validate", "export")
+STAGES: tuple[str, ...] = ("sweep", "observability", "design", "validate")
+"""Stages in order (``design`` and ``validate`` need an ``[estimator]`` table)."""
+LATER_STAGES: tuple[str, ...] = ("export",)
 
 CAUTION = ("linobs results are engineering aids: verify them in simulation, hardware-in-the-loop "
            "and test, by qualified engineers, under the applicable functional-safety standards, "
@@ -47,7 +47,7 @@ class StageSummary(BaseModel):
     evaluations: int = 0
     seconds: float = Field(0.0, description="wall time spent in this stage, over all invocations")
     computed_now: int = Field(0, description="points computed by this invocation (the rest resumed)")
-    counts: dict[str, int] = Field(default_factory=dict, description="stage-specific counts")
+    counts: dict[str, Any] = Field(default_factory=dict, description="stage-specific counts")
 
 
 class RunSummary(BaseModel):
@@ -75,6 +75,19 @@ class RunSummary(BaseModel):
     empirical_checked: int | None = None
     empirical_disagreements: int | None = None
     regions: list[str] | None = Field(None, description="where observability is lost or weak")
+    design_ok: int | None = None
+    design_refused: int | None = None
+    continuity_flags: int | None = None
+    validation_worst_margin: float | None = Field(
+        None, description="smallest frozen-point margin to the stability target (< 0: a failure)")
+    validation_frozen_passed: int | None = None
+    validation_frozen_failed: int | None = None
+    validation_rms: dict[str, float | None] | None = Field(
+        None, description="RMS estimation error per state of the schedule on the nonlinear plant")
+    fixed_gain_rms: dict[str, float | None] | None = Field(
+        None, description="the same for the fixed-gain estimator designed at the envelope's centre")
+    comparison: list[str] | None = None
+    notes: list[str] = Field(default_factory=list)
     files: dict[str, str] = Field(default_factory=dict, description="files written, by role")
     caution: str = CAUTION
 
@@ -88,7 +101,7 @@ def run_study(study: Study | str | os.PathLike[str], out: str | os.PathLike[str]
               workers: int | None = None, dask: str | None = None, dask_local: int | None = None,
               resume: bool = False, until: str | None = None,
               progress: ProgressCallback | None = None,
-              on_stage: StageCallback | None = None) -> RunSummary:
+              on_stage: StageCallback | None = None, figures: bool = True) -> RunSummary:
     """Run the study's stages into ``out`` and return the summary.
 
     Parameters
@@ -110,6 +123,8 @@ def run_study(study: Study | str | os.PathLike[str], out: str | os.PathLike[str]
         Called after every finished chunk with a :class:`~linobs.run.types.Progress`.
     on_stage
         Called as ``on_stage(stage, total_points, already_done)`` when a stage starts.
+    figures
+        Draw the figures (PNG and SVG) into ``RUN_DIR/figures``.
     """
     if not isinstance(study, Study):
         study = load_study(Path(study))
@@ -119,15 +134,38 @@ def run_study(study: Study | str | os.PathLike[str], out: str | os.PathLike[str]
     store = RunStore.open(run_dir, _identity(study), resume=resume)
     summaries: dict[str, StageSummary] = {}
     files: dict[str, str] = {}
+    notes: list[str] = []
+    if "design" in stages and study.config.estimator is None:
+        if until in ("design", "validate"):
+            raise UsageError(f"--until {until} needs an [estimator] table in the study (see "
+                             f"docs/study-file.md)")
+        stages = tuple(s for s in stages if s not in ("design", "validate"))
+        notes.append("no [estimator] table: stopped after the observability map")
     try:
         with make_executor(workers=workers, dask=dask, dask_local=dask_local) as executor:
             runner = _Runner(study, store, executor, progress, on_stage)
+            runner.figures = figures
             summaries["sweep"] = runner.sweep()
             if "observability" in stages:
                 from linobs.stages.observability_run import run_observability
 
                 summaries.update(run_observability(runner, run_dir, files))
+            if "design" in stages:
+                from linobs.stages.estimator_run import run_design_stage
+
+                summaries["design"] = run_design_stage(runner, run_dir, files)
+                des = summaries["design"].counts
+                if des.get("design_ok", 0) == 0 and "validate" in stages:
+                    stages = tuple(s for s in stages if s != "validate")
+                    notes.append(f"no grid point has an estimator design (all "
+                                 f"{des.get('design_refused', 0)} refused, reasons in "
+                                 f"{files['refused']}): no schedule, validation skipped")
+            if "validate" in stages:
+                from linobs.stages.estimator_run import run_validate_stage
+
+                summaries.update(run_validate_stage(runner, run_dir, files))
             summary = _summary(study, summaries, executor, files)
+            summary.notes = notes
     finally:
         store.close()
     atomic_write_json(run_dir / "summary.json", summary.model_dump(mode="json", exclude_none=True))
@@ -154,6 +192,7 @@ class _Runner:
         self.study, self.store, self.executor = study, store, executor
         self.progress, self.on_stage = progress, on_stage
         self.fmu = FMURef(study.fmu_sha256, str(study.fmu_path))
+        self.figures = True
 
     @property
     def workers(self) -> int:
@@ -188,7 +227,7 @@ class _Runner:
         return self.finish(stage, total, time.perf_counter() - t0, computed)
 
     def finish(self, stage: str, total: int, elapsed: float, computed: int,
-               counts: dict[str, int] | None = None) -> StageSummary:
+               counts: dict[str, Any] | None = None) -> StageSummary:
         previous = self.store.stage_info(stage) or {}
         status_counts = self.store.counts(stage)
         results = self.store.results(stage)
@@ -219,6 +258,22 @@ def _summary(study: Study, stages: dict[str, StageSummary], executor: Any,
         extra["empirical_checked"] = emp.ok if emp else 0
         extra["empirical_disagreements"] = emp.counts.get("disagree", 0) if emp else 0
         extra["regions"] = _regions_text(files)
+    des = stages.get("design")
+    if des is not None:
+        extra["design_ok"] = des.counts.get("design_ok", 0)
+        extra["design_refused"] = des.counts.get("design_refused", 0)
+        extra["continuity_flags"] = des.counts.get("continuity_flags", 0)
+    frozen = stages.get("validate-frozen")
+    if frozen is not None:
+        extra["validation_frozen_passed"] = frozen.counts.get("passed", 0)
+        extra["validation_frozen_failed"] = frozen.counts.get("failed", 0) + \
+            frozen.counts.get("unusable", 0) + frozen.counts.get("errors", 0)
+        extra["validation_worst_margin"] = frozen.counts.get("worst_margin")
+    plant = stages.get("validate-plant")
+    if plant is not None:
+        extra["validation_rms"] = plant.counts.get("rms")
+        extra["fixed_gain_rms"] = plant.counts.get("fixed_rms")
+        extra["comparison"] = plant.counts.get("comparison")
     return RunSummary(
         study=str(study.path), study_hash=study_hash(study), fmu=str(study.fmu_path),
         fmu_sha256=study.fmu_sha256, linobs_version=linobs.__version__,

@@ -33,6 +33,7 @@ from linobs.model.bundled import BUNDLED_PLANTS, bundled_fmu
 from linobs.model.catalogue import Catalogue
 from linobs.model.loader import file_sha256, read_description
 from linobs.operating.grid import Axis, Grid, geometric_values, linspace_values
+from linobs.estimator.settings import EstimatorSettings, ValidationSettings
 from linobs.observability.report import ObservabilitySettings
 from linobs.operating.trim_spec import TrimSpec
 from linobs.study_checks import (
@@ -201,6 +202,9 @@ class StudyConfig(_Section):
     linearize: LinearizeSection = Field(default_factory=LinearizeSection)
     run: RunSection = Field(default_factory=RunSection)
     observability: ObservabilitySettings = Field(default_factory=ObservabilitySettings)
+    estimator: EstimatorSettings | None = Field(
+        None, description="the scheduled estimator to design; omitted: no design or validation")
+    validation: ValidationSettings = Field(default_factory=ValidationSettings)
 
 
 # ================================================================================ the study

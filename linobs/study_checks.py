@@ -422,10 +422,59 @@ def _check_observability(ck: _Checker) -> None:
             ck.add(path, f"{name!r} is one of the map's axes; fix only the other axes")
 
 
+def _check_estimator(ck: _Checker) -> None:
+    est = ck.config.estimator
+    if est is None:
+        return
+    outputs = ck.config.outputs
+    measured = est.outputs if est.outputs is not None else (
+        outputs if outputs is not None else [v.name for v in ck.catalogue.outputs])
+    if est.outputs is not None:
+        ck.names("estimator.outputs", est.outputs, ("output",), "the estimator uses measured outputs")
+    for name in est.process_noise:
+        ck.variable(f"estimator.process_noise.{field_path([name])}", name, ("state",),
+                    "process noise is given per state (noise on its derivative)")
+    for name in est.input_noise:
+        ck.variable(f"estimator.input_noise.{field_path([name])}", name, ("input",),
+                    "input noise is given per input")
+    for name in est.measurement_noise:
+        ck.variable(f"estimator.measurement_noise.{field_path([name])}", name, ("output",),
+                    "measurement noise is given per measured output")
+    for table, values in (("process_noise", est.process_noise), ("input_noise", est.input_noise)):
+        for name, value in values.items():
+            if not value >= 0:
+                ck.add(f"estimator.{table}.{field_path([name])}", f"must be at least 0, got {_g(value)}")
+    for name, value in est.measurement_noise.items():
+        if not value > 0:
+            ck.add(f"estimator.measurement_noise.{field_path([name])}",
+                   f"must be a positive standard deviation, got {_g(value)}")
+    if est.kind == "kalman":
+        missing = [n for n in measured if n not in est.measurement_noise]
+        if missing:
+            ck.add("estimator.measurement_noise", f"a Kalman design needs the noise standard "
+                                                  f"deviation of every measured output; missing: "
+                                                  f"{', '.join(missing)}")
+
+
+def _check_validation(ck: _Checker) -> None:
+    val = ck.config.validation
+    for table, values in (("initial_state", val.initial_state), ("initial_error", val.initial_error)):
+        for name in values:
+            ck.variable(f"validation.{table}.{field_path([name])}", name, ("state",),
+                        f"validation.{table} is given per state")
+    for k, segment in enumerate(val.scenario):
+        for name, value in segment.inputs.items():
+            path = f"validation.scenario[{k}].inputs.{field_path([name])}"
+            var = ck.variable(path, name, ("input",), "a scenario sets inputs")
+            if var is not None:
+                ck.value(path, var, value)
+
+
 #: One function per section (the grid first: the others need its variables); later sections
 #: append theirs.
 CHECKS: tuple[Callable[[_Checker], None], ...] = (_check_grid, _check_model, _check_outputs,
-                                                   _check_trim, _check_observability)
+                                                   _check_trim, _check_observability,
+                                                   _check_estimator, _check_validation)
 
 
 def check_against_model(config: StudyConfig, catalogue: Catalogue, base: Path

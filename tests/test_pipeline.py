@@ -133,7 +133,9 @@ def test_resume_of_a_finished_run_computes_nothing(tmp_path: Path) -> None:
 def test_until_names_the_stages(tmp_path: Path) -> None:
     study_path = cell_study(tmp_path / "study", soc=2, current=(0.0,), temps=(25.0,))
     with pytest.raises(UsageError, match="not available in this version"):
-        run_study(study_path, tmp_path / "a", until="design")
+        run_study(study_path, tmp_path / "a", until="export")
+    with pytest.raises(UsageError, match="needs an \\[estimator\\] table"):
+        run_study(study_path, tmp_path / "d", until="design")
     with pytest.raises(UsageError, match="unknown stage 'swep'"):
         run_study(study_path, tmp_path / "b", until="swep")
     assert run_study(study_path, tmp_path / "c", until="sweep", workers=1).ok == 2

@@ -131,6 +131,22 @@ def print_run_summary(console: Console, summary: Any, run_dir: Any) -> None:
             f"{summary.empirical_disagreements} disagreeing with the linear verdict")
         for line in summary.regions or []:
             console.print(f"  - {escape(line)}")
+    if summary.design_ok is not None:
+        console.print(f"  design: {summary.design_ok} nodes designed, {summary.design_refused} "
+                      f"refused; {summary.continuity_flags} neighbouring gain jumps flagged")
+    if summary.validation_frozen_passed is not None:
+        worst = summary.validation_worst_margin
+        console.print(f"  frozen-point validation: {summary.validation_frozen_passed} passed, "
+                      f"{summary.validation_frozen_failed} failed; worst margin "
+                      f"{'n/a' if worst is None else f'{worst:.3g}'}")
+    if summary.validation_rms:
+        rms = ", ".join(f"{k} {v:.3g}" if v is not None else f"{k} diverged"
+                        for k, v in summary.validation_rms.items())
+        console.print(f"  nonlinear validation, RMS error of the schedule: {rms}")
+        for line in summary.comparison or []:
+            console.print(f"  - {escape(line)}")
+    for note in summary.notes:
+        console.print(f"  note: {escape(note)}")
     console.print(f"  wrote {escape(str(run_dir))}/summary.json and run.sqlite")
     for role, path in summary.files.items():
         console.print(f"  {role.replace('_', ' ')}: {escape(path)}")

@@ -78,6 +78,10 @@ class WorkerContext(Protocol):
         """The worker's instance of this FMU (loaded once, reused across chunks)."""
         ...
 
+    def fmu_file(self, fmu: FMURef) -> Any:  # -> pathlib.Path
+        """The FMU file on this worker's host (for tools that load it themselves, e.g. fmpy)."""
+        ...
+
     def start_parameters(self, fmu: FMURef) -> dict[str, float]:
         """Parameter values of this FMU's instance as freshly loaded (its start values)."""
         ...

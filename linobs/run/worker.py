@@ -113,6 +113,10 @@ class ProcessWorkerContext:
         self.model(fmu)
         return dict(self._start_parameters[fmu.sha256])
 
+    def fmu_file(self, fmu: FMURef) -> Path:
+        """The FMU file as this worker has it (checked by hash, or delivered to this host)."""
+        return self._file_for(fmu)
+
     def _file_for(self, fmu: FMURef) -> Path:
         delivered = self._delivered.get(fmu.sha256)
         if delivered is not None:

@@ -66,7 +66,8 @@ def run_observability(runner: "_Runner", run_dir: Path, files: dict[str, str]
 
     # 4. regions in plain words, 5. figures
     _write_regions(runner, run_dir, analysed, boundary, files)
-    _write_figures(runner, run_dir, analysed, boundary, counts, files)
+    if runner.figures:
+        _write_figures(runner, run_dir, analysed, boundary, counts, files)
     return out
 
 
