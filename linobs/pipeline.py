@@ -25,9 +25,8 @@ from linobs.run.types import STATUSES, Chunk, FMURef, Progress, ProgressCallback
 from linobs.stages import sweep
 from linobs.study import Study, load_study, study_hash
 
-STAGES: tuple[str, ...] = ("sweep", "observability", "design", "validate")
-"""Stages in order (``design`` and ``validate`` need an ``[estimator]`` table)."""
-LATER_STAGES: tuple[str, ...] = ("export",)
+STAGES: tuple[str, ...] = ("sweep", "observability", "design", "validate", "export")
+"""Stages in order (``design``, ``validate`` and ``export`` need an ``[estimator]`` table)."""
 
 CAUTION = ("linobs results are engineering aids: verify them in simulation, hardware-in-the-loop "
            "and test, by qualified engineers, under the applicable functional-safety standards, "
@@ -75,6 +74,11 @@ class RunSummary(BaseModel):
     empirical_checked: int | None = None
     empirical_disagreements: int | None = None
     regions: list[str] | None = Field(None, description="where observability is lost or weak")
+    export_usable: int | None = Field(None, description="nodes exported as usable")
+    export_refused: str | None = Field(None, description="why no table was written (designed "
+                                                         "nodes failed validation)")
+    export_failed: int | None = Field(None, description="designed nodes that failed validation "
+                                                        "(exported only with allow_failed)")
     design_ok: int | None = None
     design_refused: int | None = None
     continuity_flags: int | None = None
@@ -101,7 +105,8 @@ def run_study(study: Study | str | os.PathLike[str], out: str | os.PathLike[str]
               workers: int | None = None, dask: str | None = None, dask_local: int | None = None,
               resume: bool = False, until: str | None = None,
               progress: ProgressCallback | None = None,
-              on_stage: StageCallback | None = None, figures: bool = True) -> RunSummary:
+              on_stage: StageCallback | None = None, figures: bool = True,
+              allow_failed: bool | None = None) -> RunSummary:
     """Run the study's stages into ``out`` and return the summary.
 
     Parameters
@@ -125,6 +130,9 @@ def run_study(study: Study | str | os.PathLike[str], out: str | os.PathLike[str]
         Called as ``on_stage(stage, total_points, already_done)`` when a stage starts.
     figures
         Draw the figures (PNG and SVG) into ``RUN_DIR/figures``.
+    allow_failed
+        Export tables although designed nodes failed validation (default: the
+        study's ``[export] allow_failed``); the nodes are marked unusable.
     """
     if not isinstance(study, Study):
         study = load_study(Path(study))
@@ -135,11 +143,12 @@ def run_study(study: Study | str | os.PathLike[str], out: str | os.PathLike[str]
     summaries: dict[str, StageSummary] = {}
     files: dict[str, str] = {}
     notes: list[str] = []
+    export_refused: str | None = None
     if "design" in stages and study.config.estimator is None:
-        if until in ("design", "validate"):
+        if until in ("design", "validate", "export"):
             raise UsageError(f"--until {until} needs an [estimator] table in the study (see "
                              f"docs/study-file.md)")
-        stages = tuple(s for s in stages if s not in ("design", "validate"))
+        stages = tuple(s for s in stages if s not in ("design", "validate", "export"))
         notes.append("no [estimator] table: stopped after the observability map")
     try:
         with make_executor(workers=workers, dask=dask, dask_local=dask_local) as executor:
@@ -156,7 +165,7 @@ def run_study(study: Study | str | os.PathLike[str], out: str | os.PathLike[str]
                 summaries["design"] = run_design_stage(runner, run_dir, files)
                 des = summaries["design"].counts
                 if des.get("design_ok", 0) == 0 and "validate" in stages:
-                    stages = tuple(s for s in stages if s != "validate")
+                    stages = tuple(s for s in stages if s not in ("validate", "export"))
                     notes.append(f"no grid point has an estimator design (all "
                                  f"{des.get('design_refused', 0)} refused, reasons in "
                                  f"{files['refused']}): no schedule, validation skipped")
@@ -164,8 +173,21 @@ def run_study(study: Study | str | os.PathLike[str], out: str | os.PathLike[str]
                 from linobs.stages.estimator_run import run_validate_stage
 
                 summaries.update(run_validate_stage(runner, run_dir, files))
+            if "export" in stages:
+                from linobs.stages.export_run import run_export_stage
+
+                from linobs.export.assemble import ExportRefused
+
+                try:
+                    summaries["export"] = run_export_stage(runner, run_dir, files,
+                                                           allow_failed=allow_failed,
+                                                           caution=CAUTION)
+                except ExportRefused as exc:
+                    export_refused = str(exc)
+                    notes.append(f"export refused: {exc}")
             summary = _summary(study, summaries, executor, files)
             summary.notes = notes
+            summary.export_refused = export_refused
     finally:
         store.close()
     atomic_write_json(run_dir / "summary.json", summary.model_dump(mode="json", exclude_none=True))
@@ -175,12 +197,9 @@ def run_study(study: Study | str | os.PathLike[str], out: str | os.PathLike[str]
 def _stages_until(until: str | None) -> tuple[str, ...]:
     if until is None:
         return STAGES
-    if until in LATER_STAGES:
-        raise UsageError(f"stage {until!r} is not available in this version; available: "
-                         f"{', '.join(STAGES)}")
     if until not in STAGES:
         raise UsageError(f"unknown stage {until!r}; stages in order: "
-                         f"{', '.join(STAGES + LATER_STAGES)}")
+                         f"{', '.join(STAGES)}")
     return STAGES[: STAGES.index(until) + 1]
 
 
@@ -269,6 +288,10 @@ def _summary(study: Study, stages: dict[str, StageSummary], executor: Any,
         extra["validation_frozen_failed"] = frozen.counts.get("failed", 0) + \
             frozen.counts.get("unusable", 0) + frozen.counts.get("errors", 0)
         extra["validation_worst_margin"] = frozen.counts.get("worst_margin")
+    exp = stages.get("export")
+    if exp is not None:
+        extra["export_usable"] = exp.counts.get("exported_usable")
+        extra["export_failed"] = exp.counts.get("exported_failed")
     plant = stages.get("validate-plant")
     if plant is not None:
         extra["validation_rms"] = plant.counts.get("rms")

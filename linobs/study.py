@@ -189,6 +189,20 @@ class RunSection(_Section):
         "points per unit of work handed to a worker; omitted: chosen automatically"))
 
 
+class ExportSection(_Section):
+    """What the ``export`` stage writes into ``RUN_DIR/export``."""
+
+    allow_failed: bool = Field(False, description=(
+        "write the tables although designed nodes failed validation (they are marked unusable "
+        "and the caution says so)"))
+    csv: bool = Field(True, description="also write schedule_table.csv and its units sidecar")
+    c_code: bool = Field(True, description="also write the C99 header and source")
+    estimator_fmu: bool = Field(True, description=(
+        "also build the estimator as an FMI 2.0 co-simulation FMU (needs a C compiler)"))
+    c_prefix: str = Field("linobs_schedule", pattern=r"^[A-Za-z_][A-Za-z0-9_]{0,40}$",
+                          description="prefix of the C file names and identifiers")
+
+
 class StudyConfig(_Section):
     """A whole study file."""
 
@@ -205,6 +219,7 @@ class StudyConfig(_Section):
     estimator: EstimatorSettings | None = Field(
         None, description="the scheduled estimator to design; omitted: no design or validation")
     validation: ValidationSettings = Field(default_factory=ValidationSettings)
+    export: ExportSection = Field(default_factory=ExportSection)
 
 
 # ================================================================================ the study

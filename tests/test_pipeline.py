@@ -132,7 +132,7 @@ def test_resume_of_a_finished_run_computes_nothing(tmp_path: Path) -> None:
 
 def test_until_names_the_stages(tmp_path: Path) -> None:
     study_path = cell_study(tmp_path / "study", soc=2, current=(0.0,), temps=(25.0,))
-    with pytest.raises(UsageError, match="not available in this version"):
+    with pytest.raises(UsageError, match="needs an \\[estimator\\] table"):
         run_study(study_path, tmp_path / "a", until="export")
     with pytest.raises(UsageError, match="needs an \\[estimator\\] table"):
         run_study(study_path, tmp_path / "d", until="design")

@@ -1,4 +1,4 @@
-"""Build a model-exchange FMU from a folder of C sources.
+"""Build a model-exchange FMU (or an FMI 2.0 co-simulation one) from a folder of C sources.
 
 A source folder holds ``modelDescription.xml`` and ``sources/*.c`` (plus any
 ``.h`` files).  The plant sources are written against the small C framework in
@@ -86,7 +86,11 @@ def fmi_headers_dir() -> Path:
 
 
 def _read_model_description(xml_path: Path) -> tuple[str, str]:
-    """FMI version and model-exchange modelIdentifier of a source folder's model description."""
+    """FMI version and modelIdentifier of a source folder's model description.
+
+    The model-exchange identifier; for an FMI 2.0 description with only a
+    CoSimulation interface, the co-simulation one.
+    """
     import fmpy
 
     if not xml_path.is_file():
@@ -100,11 +104,13 @@ def _read_model_description(xml_path: Path) -> tuple[str, str]:
         raise FMUFileError(
             f"cannot read {xml_path}: {first}; fix the model description "
             "(check it with fmpy.validate_fmu)") from None
-    if md.modelExchange is None:
-        raise FMUFileError(
-            f"{xml_path} declares no ModelExchange interface; linobs builds model-exchange "
-            "FMUs only")
-    return str(md.fmiVersion), str(md.modelExchange.modelIdentifier)
+    if md.modelExchange is not None:
+        return str(md.fmiVersion), str(md.modelExchange.modelIdentifier)
+    if str(md.fmiVersion) == "2.0" and md.coSimulation is not None:  # e.g. the estimator FMU
+        return str(md.fmiVersion), str(md.coSimulation.modelIdentifier)
+    raise FMUFileError(
+        f"{xml_path} declares no ModelExchange interface; linobs builds model-exchange "
+        "FMUs (and FMI 2.0 co-simulation FMUs) only")
 
 
 def _binary_path(fmi_version: str, identifier: str) -> str:

@@ -145,6 +145,13 @@ def print_run_summary(console: Console, summary: Any, run_dir: Any) -> None:
         console.print(f"  nonlinear validation, RMS error of the schedule: {rms}")
         for line in summary.comparison or []:
             console.print(f"  - {escape(line)}")
+    if summary.export_usable is not None:
+        failed = summary.export_failed or 0
+        console.print(f"  export: {summary.export_usable} nodes usable"
+                      + (f", {failed} failed validation and marked unusable (--allow-failed)"
+                         if failed else "") + "; verify with `linobs verify "
+                      f"{escape(summary.files.get('schedule_table', 'TABLE.json'))} "
+                      f"{escape(summary.fmu)}`")
     for note in summary.notes:
         console.print(f"  note: {escape(note)}")
     console.print(f"  wrote {escape(str(run_dir))}/summary.json and run.sqlite")
