@@ -141,9 +141,14 @@ def run(
     resume: Annotated[bool, typer.Option(
         "--resume", help="Continue the run in RUN_DIR; compute only what is missing.")] = False,
     until: Annotated[Optional[str], typer.Option(
-        "--until", metavar="STAGE", help="Last stage to run: sweep or observability (default: all).")] = None,
+        "--until", metavar="STAGE",
+        help="Last stage to run: sweep, observability, design, validate or export (default: all).")] = None,
+    allow_failed: Annotated[bool, typer.Option(
+        "--allow-failed", help="Export although designed nodes failed validation (they are "
+                               "marked unusable and every file says so).")] = False,
 ) -> None:
-    """Run a study into RUN_DIR: sweep the grid (trim + linearize), then map observability."""
+    """Run a study into RUN_DIR: sweep the grid (trim + linearize), map observability, design
+    and validate the scheduled estimator, export the tables and the estimator FMU."""
     from linobs.pipeline import run_study
     from linobs.report.console import print_run_summary, run_progress
 
@@ -152,20 +157,82 @@ def run(
             raise UsageError("give either --dask ADDRESS or --dask-local N, not both")
         with run_progress(console) as (progress, on_stage):
             summary = run_study(study_path, out, workers=workers, dask=dask, dask_local=dask_local,
-                                resume=resume, until=until, progress=progress, on_stage=on_stage)
+                                resume=resume, until=until, progress=progress, on_stage=on_stage,
+                                allow_failed=True if allow_failed else None)
         print_run_summary(console, summary, out)
+        if summary.export_refused:
+            err_console.print(f"[red]error:[/red] export refused: {escape(summary.export_refused)}",
+                              highlight=False, soft_wrap=True)
+            raise typer.Exit(1)
+
+
+@app.command("table-schema")
+def table_schema_command() -> None:
+    """Print the JSON Schema of the exported schedule table."""
+    from linobs.export.table import table_schema
+
+    _echo_json(table_schema())
+
+
+@app.command()
+def verify(
+    table: Annotated[Path, typer.Argument(metavar="TABLE.json", help="The exported schedule table.")],
+    fmu: Annotated[Path, typer.Argument(metavar="MODEL.fmu", help="The plant FMU to check against.")],
+    sample: Annotated[int, typer.Option("--sample", min=1, help="Nodes to re-linearize.")] = 8,
+    seed: Annotated[int, typer.Option("--seed", help="Seed of the node sample.")] = 0,
+    as_json: Annotated[bool, typer.Option("--json", help="Print the report as JSON.")] = False,
+) -> None:
+    """Check a schedule table against an FMU: identity, checksum, local models, frozen points."""
+    from linobs.export.verify import verify_table
+
+    with _errors():
+        report = verify_table(table, fmu, sample=sample, seed=seed)
+    if as_json:
+        _echo_json(report.model_dump(mode="json"))
+    else:
+        for line in report.checks:
+            console.print(f"ok: {escape(line)}")
+        for line in report.reasons:
+            console.print(f"[red]FAILED[/red]: {escape(line)}")
+        console.print("verified" if report.ok else "[red]not verified[/red]")
+    if not report.ok:
+        raise typer.Exit(1)
+
+
+@app.command("export-fmu")
+def export_fmu_command(
+    table: Annotated[Path, typer.Argument(metavar="TABLE.json", help="The exported schedule table.")],
+    output: Annotated[Path, typer.Option("-o", "--output", metavar="OUT.fmu",
+                                         help="The estimator FMU to write.")],
+) -> None:
+    """Build the scheduled estimator of a schedule table as an FMI 2.0 co-simulation FMU."""
+    from linobs.export.estimator_fmu import build_estimator_fmu
+    from linobs.export.table import read_table
+    from linobs.estimator.schedule import GainSchedule
+
+    with _errors():
+        t = read_table(table)
+        name = "".join(c if c.isalnum() else "_" for c in t.study) + "_estimator"
+        note = (f"source FMU {t.fmu.model_name} (GUID {t.fmu.guid}, SHA-256 {t.fmu.sha256}); "
+                f"schedule table checksum {t.checksum}")
+        path = build_estimator_fmu(GainSchedule(t.schedule_data()), output, model_name=name,
+                                   caution=t.caution, header_note=note)
+    console.print(f"wrote {path}")
 
 
 @app.command()
 def demo(
     out: Annotated[Optional[Path], typer.Option(
-        "--out", help="Folder for the demo's results (default: a folder in the cache).")] = None,
+        "--out", help="Folder for the demo's run (default: a folder in the cache).")] = None,
+    workers: Annotated[Optional[int], typer.Option(
+        "--workers", min=1, help="Local worker processes (default: one per core).")] = None,
 ) -> None:
-    """Run the bundled lithium iron phosphate cell demo."""
+    """Run the bundled battery-cell study end to end: observability map, Kalman schedule,
+    validation against a fixed gain, export, report."""
     from linobs.demo import run_demo
 
     with _errors():
-        run_demo(console, out)
+        run_demo(console, out, workers=workers)
 
 
 def main() -> None:  # pragma: no cover - console entry point

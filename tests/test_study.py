@@ -56,16 +56,16 @@ def test_examples_load(bundled_fmus: dict[str, Path]) -> None:
     cell = load_study(EXAMPLES / "lfp_cell.toml", bundled_cache=cache)
     assert cell.fmu_path == bundled_fmus["lfp_cell"]
     # common practice: a tensor grid has the product of the axis sizes as its number of points
-    assert cell.grid.names == ("soc", "t_amb", "i_cell") and len(cell.grid) == 13 * 4 * 7
-    assert len(cell.grid) <= 400                               # the demo stays small
+    assert cell.grid.names == ("soc", "t_amb", "i_cell") and len(cell.grid) == 14 * 5 * 7
+    assert len(cell.grid) <= 500                               # the demo stays small
     # Denser near the ends, where the open-circuit voltage curve bends.
     soc = cell.grid.axes[0].values
-    assert (soc[0], soc[6], soc[12]) == (0.03, 0.5, 0.97)
+    assert (soc[0], soc[7], soc[13]) == (0.03, 0.5, 0.97)
     # soc is on an axis, so "all" frees the other three states: 3 unknowns, 3 equations
     assert cell.trim.free_states == ("v_rc1", "v_rc2", "temp_cell")
     assert cell.trim_equations == ("der(v_rc1)", "der(v_rc2)", "der(temp_cell)")
     assert cell.outputs == ("v_term", "t_surf") and cell.parameters == {"Q_Ah": 20.0, "hA": 0.8}
-    assert cell.point_values(0) == {"soc": 0.03, "t_amb": -10.0, "i_cell": -40.0}
+    assert cell.point_values(0) == {"soc": 0.03, "t_amb": -10.0, "i_cell": -20.0}
 
     tanks = load_study(EXAMPLES / "four_tank.toml", bundled_cache=cache)
     assert len(tanks.grid) == 25 and tanks.trim.unknowns == ("h1", "h2", "h3", "h4")
