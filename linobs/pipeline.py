@@ -190,7 +190,11 @@ def run_study(study: Study | str | os.PathLike[str], out: str | os.PathLike[str]
             summary.export_refused = export_refused
     finally:
         store.close()
+    summary.files["report"] = str(run_dir / "report.html")
     atomic_write_json(run_dir / "summary.json", summary.model_dump(mode="json", exclude_none=True))
+    from linobs.report.html import write_report
+
+    write_report(run_dir)
     return summary
 
 
