@@ -12,6 +12,8 @@ build_fmu, bundled_fmu
     Compile C-source FMUs; the bundled demo plants.
 load_study, run_study
     Read a study file; run its stages into a run folder.
+GainSchedule, read_table, verify_table, write_report
+    The scheduled estimator; read and verify an exported schedule table; the HTML report.
 trim
     Partial trim at one operating point.
 """
@@ -36,6 +38,7 @@ __all__ = [
     "BUNDLED_PLANTS", "Capabilities", "Catalogue", "LinearModel", "LinobsError", "Model",
     "OperatingPoint", "Variable", "build_fmu", "bundled_fmu", "linearize", "load_model",
     "resolve_point", "trim", "TrimResult", "TrimSpec", "load_study", "run_study",
+    "GainSchedule", "read_table", "verify_table", "write_report",
 ]
 
 
@@ -46,4 +49,10 @@ def __getattr__(name: str) -> object:  # heavier entry points load on first use
     if name == "load_study":
         from linobs.study import load_study
         return load_study
+    lazy = {"GainSchedule": "linobs.estimator.schedule", "read_table": "linobs.export.table",
+            "verify_table": "linobs.export.verify", "write_report": "linobs.report.html"}
+    if name in lazy:
+        import importlib
+
+        return getattr(importlib.import_module(lazy[name]), name)
     raise AttributeError(f"module 'linobs' has no attribute {name!r}")
