@@ -108,7 +108,7 @@ def build_table(schedule: GainSchedule, *, caution: str, study: str, study_hash:
                 nonlinear_rms: Mapping[str, float] | None = None,
                 fixed_gain_rms: Mapping[str, float] | None = None,
                 allow_failed: bool = False) -> ScheduleTable:
-    """The schedule table (not yet sealed with its checksum: :func:`write_table` does that).
+    """The schedule table (not yet sealed with its checksum: :func:`seal_table` does that).
 
     Raises
     ------

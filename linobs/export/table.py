@@ -47,7 +47,7 @@ from linobs.errors import LinobsError, UsageError
 
 __all__ = ["FORMAT", "SCHEMA_VERSION", "FmuIdentity", "NodeValidation", "ScheduleTable",
            "TableAxis", "TableError", "content_checksum", "fmu_identity", "read_table",
-           "table_schema", "write_table"]
+           "seal_table", "table_schema", "write_table"]
 
 FORMAT = "linobs-schedule-table"
 SCHEMA_VERSION = 1
@@ -195,11 +195,18 @@ def now_utc() -> str:
     return datetime.now(timezone.utc).replace(microsecond=0).isoformat()
 
 
-def write_table(table: ScheduleTable, path: str | os.PathLike[str]) -> Path:
-    """Seal the table with its checksum and write it atomically; returns the path."""
+def seal_table(table: ScheduleTable) -> ScheduleTable:
+    """A copy of the table carrying the checksum of its content."""
     sealed = table.model_copy(update={"checksum": ""})
-    sealed = sealed.model_copy(update={"checksum": content_checksum(sealed)})
-    return atomic_write_text(path, table_json(sealed))
+    return sealed.model_copy(update={"checksum": content_checksum(sealed)})
+
+
+def write_table(table: ScheduleTable, path: str | os.PathLike[str]) -> Path:
+    """Write a sealed table (:func:`seal_table`) atomically; returns the path."""
+    if table.checksum != content_checksum(table):
+        raise TableError("the table is not sealed (its checksum does not match its content); "
+                         "seal it with seal_table before writing")
+    return atomic_write_text(path, table_json(table))
 
 
 def table_json(table: ScheduleTable) -> str:

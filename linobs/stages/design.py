@@ -94,8 +94,9 @@ def stored_nodes(store: "RunStore") -> dict[int, NodeDesign]:
             if r.status == "ok"}
 
 
-def build_schedule(study: "Study", store: "RunStore") -> "GainSchedule":
-    """The gain schedule from the stored node designs.
+def build_schedule(study: "Study", store: "RunStore",
+                   nodes: dict[int, NodeDesign] | None = None) -> "GainSchedule":
+    """The gain schedule from the stored node designs (``nodes``: already read from the store).
 
     Grid points that have no local model at all get a refused copy of their
     nearest designed neighbour's structure (never its gain), so the schedule's
@@ -103,7 +104,7 @@ def build_schedule(study: "Study", store: "RunStore") -> "GainSchedule":
     """
     from linobs.estimator.schedule import schedule_from_nodes
 
-    nodes = stored_nodes(store)
+    nodes = stored_nodes(store) if nodes is None else dict(nodes)
     if not nodes:
         raise UsageError("no grid point has a local model to design from; look at the sweep's "
                          "failures first")

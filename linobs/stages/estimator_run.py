@@ -42,16 +42,16 @@ def run_design_stage(runner: "_Runner", run_dir: Path, files: dict[str, str]) ->
         runner.on_stage(design.STAGE, total, len(store.done_ids(design.STAGE)))
     computed, ok, refused = design.run_design(study, store)
     folder = run_dir / "design"
+    nodes = design.stored_nodes(store)
     refusals = [{"index": i, "point": study.point_values(i), "message": node.message,
                  "unmovable_modes": node.unmovable_modes}
-                for i, node in sorted(design.stored_nodes(store).items())
-                if node.status == "refused"]
+                for i, node in sorted(nodes.items()) if node.status == "refused"]
     atomic_write_json(folder / "refused.json", refusals)
     files["refused"] = str(folder / "refused.json")
     if ok == 0:
         return runner.finish(design.STAGE, total, time.perf_counter() - t0, computed,
                              {"design_ok": 0, "design_refused": refused, "continuity_flags": 0})
-    schedule = design.build_schedule(study, store)
+    schedule = design.build_schedule(study, store, nodes)
     atomic_write_text(folder / "schedule.json", schedule.data.model_dump_json(indent=1))
     files["schedule"] = str(folder / "schedule.json")
     from linobs.estimator.continuity import gain_jumps

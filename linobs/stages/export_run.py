@@ -35,7 +35,7 @@ def run_export_stage(runner: "_Runner", run_dir: Path, files: dict[str, str], *,
                      allow_failed: bool | None = None, caution: str) -> "StageSummary":
     from linobs.estimator.frozen import FrozenReport, frozen_point_check
     from linobs.export.assemble import build_table
-    from linobs.export.table import fmu_identity, write_table
+    from linobs.export.table import fmu_identity, seal_table, write_table
     from linobs.linear.linear_model import LinearModel
     from linobs.stages import design
     from linobs.study import study_hash
@@ -70,11 +70,9 @@ def run_export_stage(runner: "_Runner", run_dir: Path, files: dict[str, str], *,
         own=own, between=between, nonlinear_rms=_rms(plant, "rms"),
         fixed_gain_rms=_rms(plant, "fixed_rms"), allow_failed=allow)
     folder = run_dir / "export"
+    table = seal_table(table)
     path = write_table(table, folder / "schedule_table.json")
     files["schedule_table"] = str(path)
-    from linobs.export.table import read_table
-
-    table = read_table(path)  # sealed: carries its checksum
     if settings.csv:
         from linobs.export.csv_table import write_csv
 
