@@ -10,7 +10,7 @@ fixed gain), the export (or why it was refused), and every failure and note
 — with the safety caution at the top and at the bottom.
 
 It never recomputes a design or a check; the only thing it may draw is the
-gain-surface figure (``figures/schedule_gains``), when the schedule is there
+gain-map figure (``figures/schedule_gains``), when the schedule is there
 and the figure is not.  Figures are embedded as base64 PNG data URIs, style
 and script are inline, all text is escaped, and the page's
 content-security policy forbids loading anything from anywhere.
@@ -236,13 +236,13 @@ def _ensure_gain_figure(run: RunFolder) -> None:
     """Draw ``figures/schedule_gains`` from the stored schedule when it is missing."""
     if run.schedule is None or run.figure("schedule_gains") is not None:
         return
-    from linobs.report.schedule_figures import gain_surfaces
+    from linobs.report.schedule_figures import gain_maps
 
     info = run.fmu
     try:
-        gain_surfaces(run.schedule, out_stem=run.root / "figures" / "schedule_gains",
-                      scales=(info.nominals or None) if info else None,
-                      units=(info.units or None) if info else None,
-                      title=f"{run.study_name}: largest gain entries")
+        gain_maps(run.schedule, out_stem=run.root / "figures" / "schedule_gains",
+                  scales=(info.nominals or None) if info else None,
+                  units=(info.units or None) if info else None,
+                  title=f"{run.study_name}: gain maps of the largest gain entries")
     except (LinobsError, ValueError) as exc:
-        run.problems.append(f"the gain-surface figure could not be drawn ({exc})")
+        run.problems.append(f"the gain-map figure could not be drawn ({exc})")

@@ -25,7 +25,7 @@ MAX_JUMPS = 12
 
 
 def schedule_section(run: RunFolder) -> str:
-    """The gain schedule: design counts, refused nodes, continuity flags, gain surfaces."""
+    """The gain schedule: design counts, refused nodes, continuity flags, gain maps."""
     s = run.summary
     if "design" not in s.stages:
         return _not_run(run, "No estimator was designed")
@@ -67,11 +67,11 @@ def schedule_section(run: RunFolder) -> str:
         out.append("<p>No neighbouring gains jump by more than the continuity threshold.</p>")
     else:
         out.append('<p class="missing">No continuity check in the run folder.</p>')
-    out.append(figure(run.figure("schedule_gains"), alt="gain surfaces",
-                      caption="The largest gain entries L[state, output] over the grid "
+    out.append(figure(run.figure("schedule_gains"), alt="gain maps",
+                      caption="Gain maps: the largest gain entries L[state, output] over the grid "
                               "(ranking, slice and scaling are stated in the figure); "
                               "hatched: refused nodes.",
-                      missing="No gain-surface figure (no schedule in the run folder)."))
+                      missing="No gain-map figure (no schedule in the run folder)."))
     return "\n".join(out)
 
 
@@ -180,7 +180,7 @@ def export_section(run: RunFolder) -> str:
     listed = {k: v for k, v in s.files.items() if k != "report"}  # this file itself
     gains = run.figure("schedule_gains")
     if gains is not None and str(gains) not in listed.values():
-        listed["gain surfaces (drawn by the report)"] = str(gains)
+        listed["gain maps (drawn by the report)"] = str(gains)
     rows = []
     for role, path in listed.items():
         p = run.locate(path)

@@ -1,4 +1,4 @@
-"""Gain-surface figure of a gain schedule: the largest gain entries over the grid.
+"""Gain-map figure of a gain schedule: the largest gain entries over the grid.
 
 Drawn like the other report figures (:mod:`linobs.report.figures`): a bare
 :class:`~matplotlib.figure.Figure`, no pyplot, PNG and deterministic SVG,
@@ -47,7 +47,7 @@ from linobs.errors import UsageError
 from linobs.estimator.schedule import ScheduleData
 from linobs.report.figures import DPI, _edges, _save, _use_log, axis_label
 
-__all__ = ["GainEntry", "gain_surfaces", "gain_surfaces_figure", "largest_gains"]
+__all__ = ["GainEntry", "gain_maps", "gain_maps_figure", "largest_gains"]
 
 CMAP, CMAP_SIGNED = "viridis", "PuOr_r"
 _REFUSED_FACE, _REFUSED_EDGE, _REFUSED_HATCH = "0.85", "0.45", "////"
@@ -101,12 +101,12 @@ def largest_gains(data: ScheduleData, count: int = 4,
     return chosen
 
 
-def gain_surfaces_figure(data: ScheduleData, *, entries: int = 4,
-                         axes: Sequence[str] | None = None,
-                         fixed: Mapping[str, float] | None = None,
-                         scales: Mapping[str, float] | None = None,
-                         units: Mapping[str, str] | None = None, title: str = "") -> Figure:
-    """The gain-surface figure (see :func:`gain_surfaces`)."""
+def gain_maps_figure(data: ScheduleData, *, entries: int = 4,
+                     axes: Sequence[str] | None = None,
+                     fixed: Mapping[str, float] | None = None,
+                     scales: Mapping[str, float] | None = None,
+                     units: Mapping[str, str] | None = None, title: str = "") -> Figure:
+    """The gain-map figure (see :func:`gain_maps`)."""
     chosen = largest_gains(data, entries, scales)
     gains, first = _gain_stack(data)
     shown = _shown_axes(data, axes)
@@ -155,7 +155,7 @@ def gain_surfaces_figure(data: ScheduleData, *, entries: int = 4,
     ranked = ("peak |L| scaled by the state and output scales (|L_ij|·s(y_j)/s(x_i))"
               if scales else "peak |L| in model units")
     total = len(first.states) * len(first.outputs)
-    fig.suptitle(title or "Gain schedule: largest gain entries", fontweight="bold")
+    fig.suptitle(title or "Gain maps: the largest gain entries", fontweight="bold")
     note = f"{len(chosen)} of {total} entries, ranked by {ranked}"
     legend = fig.legend(handles=handles, loc="outside lower center", fontsize=8, frameon=False,
                         title=note + (f"; {slice_note}" if slice_note else ""), title_fontsize=8)
@@ -163,10 +163,10 @@ def gain_surfaces_figure(data: ScheduleData, *, entries: int = 4,
     return fig
 
 
-def gain_surfaces(data: ScheduleData, *, out_stem: Path, entries: int = 4,
-                  axes: Sequence[str] | None = None, fixed: Mapping[str, float] | None = None,
-                  scales: Mapping[str, float] | None = None,
-                  units: Mapping[str, str] | None = None, title: str = "") -> list[Path]:
+def gain_maps(data: ScheduleData, *, out_stem: Path, entries: int = 4,
+              axes: Sequence[str] | None = None, fixed: Mapping[str, float] | None = None,
+              scales: Mapping[str, float] | None = None,
+              units: Mapping[str, str] | None = None, title: str = "") -> list[Path]:
     """Heat maps (or lines) of the largest gain entries over the grid, PNG + SVG.
 
     Parameters
@@ -199,8 +199,8 @@ def gain_surfaces(data: ScheduleData, *, out_stem: Path, entries: int = 4,
         No node has a design; an axis that is not a grid axis; a fixed value
         for a shown axis.
     """
-    return _save(gain_surfaces_figure(data, entries=entries, axes=axes, fixed=fixed,
-                                      scales=scales, units=units, title=title), Path(out_stem))
+    return _save(gain_maps_figure(data, entries=entries, axes=axes, fixed=fixed,
+                                  scales=scales, units=units, title=title), Path(out_stem))
 
 
 # ------------------------------------------------------------------------------ data

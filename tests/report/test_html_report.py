@@ -150,7 +150,7 @@ def test_report_names_the_fmu_and_the_findings(stage_run: Path, report) -> None:
 def test_report_is_self_contained_with_every_figure(stage_run: Path, report) -> None:
     _, text, page = report
     count = check_self_contained(text, page)
-    # the five pipeline figures and the gain surfaces the report drew
+    # the five pipeline figures and the gain maps the report drew
     assert count == 6
     assert (stage_run / "figures" / "schedule_gains.png").is_file()
     assert (stage_run / "figures" / "schedule_gains.svg").is_file()

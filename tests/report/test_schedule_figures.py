@@ -1,4 +1,4 @@
-"""Gain-surface figure: which entries are chosen, which slice is drawn, refused nodes marked.
+"""Gain-map figure: which entries are chosen, which slice is drawn, refused nodes marked.
 
 Synthetic schedules (drawing input only, no model): every gain entry is a
 known function of the node's grid indices (values by construction, so the
@@ -20,7 +20,7 @@ from matplotlib.image import imread
 from linobs.errors import UsageError
 from linobs.estimator.node import NodeDesign
 from linobs.estimator.schedule import ScheduleData
-from linobs.report.schedule_figures import gain_surfaces, largest_gains
+from linobs.report.schedule_figures import gain_maps, largest_gains
 
 STATES, OUTPUTS = ["x1", "x2"], ["y1"]
 
@@ -87,8 +87,8 @@ def test_heat_maps_show_the_middle_slice_and_mark_refused_nodes(tmp_path: Path) 
     # grid 3 × 2 × 3 (a, b, c); the middle of c is index 1, so the cells of L[x1,y1] read
     # i + 10 j + 100.  Node (i=1, j=0, k=1) is refused: flat index 1·6 + 0·3 + 1 = 7.
     data = tensor_schedule((3, 2, 3), refused={7})
-    text = svg_text(gain_surfaces(data, out_stem=tmp_path / "gains",
-                                  units={"a": "K", "x1": "m", "y1": "V"}, title="demo"))
+    text = svg_text(gain_maps(data, out_stem=tmp_path / "gains",
+                              units={"a": "K", "x1": "m", "y1": "V"}, title="demo"))
     assert "L[x1,y1]" in text and "L[x2,y1]" in text and "demo" in text
     assert "slice at the middle grid value c = 1.5" in text
     expected = {(i, j): str(i + 10 * j + 100) for i in range(3) for j in range(2)}
@@ -102,7 +102,7 @@ def test_heat_maps_show_the_middle_slice_and_mark_refused_nodes(tmp_path: Path) 
 
 def test_fixed_value_selects_another_slice(tmp_path: Path) -> None:
     data = tensor_schedule((2, 2, 3))
-    text = svg_text(gain_surfaces(data, out_stem=tmp_path / "g", fixed={"c": 1.9}))
+    text = svg_text(gain_maps(data, out_stem=tmp_path / "g", fixed={"c": 1.9}))
     assert "slice at c = 2" in text                   # the nearest grid value to 1.9
     assert cell_values(tmp_path / "g.svg") == {(i, j): str(i + 10 * j + 200)
                                                for i in range(2) for j in range(2)}
@@ -110,7 +110,7 @@ def test_fixed_value_selects_another_slice(tmp_path: Path) -> None:
 
 def test_one_axis_draws_lines_with_refused_nodes(tmp_path: Path) -> None:
     data = tensor_schedule((5,), refused={2})
-    text = svg_text(gain_surfaces(data, out_stem=tmp_path / "line", entries=1))
+    text = svg_text(gain_maps(data, out_stem=tmp_path / "line", entries=1))
     assert "L[x1,y1]" in text and "refused node (1)" in text
     svg = (tmp_path / "line.svg").read_text(encoding="utf-8")
     assert 'id="gain-line' in svg and 'id="refused-node' in svg
@@ -121,7 +121,7 @@ def test_scattered_nodes_are_points(tmp_path: Path) -> None:
     points = [[float(a), float(b)] for a in base.axis_values[0] for b in base.axis_values[1]]
     data = ScheduleData(grid_kind="scattered", axes=base.axes, points=points,
                         axis_roles=base.axis_roles, nodes=base.nodes)
-    gain_surfaces(data, out_stem=tmp_path / "sc")
+    gain_maps(data, out_stem=tmp_path / "sc")
     svg = (tmp_path / "sc.svg").read_text(encoding="utf-8")
     assert 'id="gain-points' in svg and 'id="refused-points' in svg
 
@@ -129,10 +129,10 @@ def test_scattered_nodes_are_points(tmp_path: Path) -> None:
 def test_bad_requests_are_refused(tmp_path: Path) -> None:
     data = tensor_schedule((2, 2, 2))
     with pytest.raises(UsageError, match="not a scheduling axis"):
-        gain_surfaces(data, out_stem=tmp_path / "x", axes=["a", "z"])
+        gain_maps(data, out_stem=tmp_path / "x", axes=["a", "z"])
     with pytest.raises(UsageError, match="cannot also be fixed"):
-        gain_surfaces(data, out_stem=tmp_path / "x", fixed={"a": 1.0})
+        gain_maps(data, out_stem=tmp_path / "x", fixed={"a": 1.0})
     every = tensor_schedule((2, 2), refused={0, 1, 2, 3})
     with pytest.raises(UsageError, match="no node of the schedule has a design"):
-        gain_surfaces(every, out_stem=tmp_path / "x")
+        gain_maps(every, out_stem=tmp_path / "x")
     assert not list(tmp_path.iterdir())               # nothing written on refusal
