@@ -1,7 +1,7 @@
-"""FMU evaluations per trimmed point: linobs ``trim`` with continuation vs scipy ``root(hybr)``.
+"""FMU evaluations per trimmed point: linobs ``find_operating_point`` with continuation vs scipy ``root(hybr)``.
 
 Over each grid the points are visited in serpentine order (consecutive
-points differ by one step along one axis).  linobs ``trim`` warm-starts every
+points differ by one step along one axis).  linobs' trim warm-starts every
 point from the previous converged one; scipy's MINPACK hybrid method
 (Powell's dog-leg with Broyden updates and forward-difference Jacobians)
 starts every point from the model's start values, on the same scaled
@@ -31,7 +31,7 @@ from scipy.optimize import root
 from linobs.errors import EvaluationError
 from linobs.model.bundled import bundled_fmu
 from linobs.model.loader import load_model
-from linobs.operating.trim import Continuation, trim
+from linobs.operating.trim import Continuation, find_operating_point
 from linobs.operating.trim_spec import TrimSpec
 
 
@@ -81,7 +81,7 @@ def run(plant: str, axes: dict[str, list[float]], spec: TrimSpec) -> None:
         warm = Continuation()
         t0 = time.perf_counter()
         for fixed in points:
-            res = trim(model, fixed, spec, continuation=warm)
+            res = find_operating_point(model, fixed, spec, continuation=warm)
             lin_evals.append(res.evaluations)
             lin_it.append(res.iterations)
             lin_jac.append(res.jacobians)

@@ -60,7 +60,7 @@ def one_point() -> None:
     fmu = linobs.bundled_fmu("four_tank")           # compiled from C sources on first use
     with linobs.load_model(fmu) as model:
         spec = linobs.TrimSpec(free_states="all")   # all four levels steady
-        tr = linobs.trim(model, {"v1": 3.0, "v2": 3.0}, spec)
+        tr = linobs.find_operating_point(model, {"v1": 3.0, "v2": 3.0}, spec)
         print(f"trim: converged={tr.converged} in {tr.iterations} iterations, "
               f"levels {np.round([tr.states[s] for s in ('h1', 'h2', 'h3', 'h4')], 3)} cm")
         lm = linobs.linearize(model, tr.point(), method="exact")

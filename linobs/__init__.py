@@ -14,8 +14,9 @@ load_study, run_study
     Read a study file; run its stages into a run folder.
 GainSchedule, read_table, verify_table, write_report
     The scheduled estimator; read and verify an exported schedule table; the HTML report.
-trim
-    Partial trim at one operating point.
+find_operating_point
+    Partial trim at one operating point: the steady state (and free inputs) for
+    the values held fixed.
 """
 
 from __future__ import annotations
@@ -29,7 +30,7 @@ from linobs.model.catalogue import Capabilities, Catalogue, Variable
 from linobs.model.instance import Model
 from linobs.model.loader import load_model
 from linobs.operating.point import OperatingPoint, resolve_point
-from linobs.operating.trim import trim
+from linobs.operating.trim import find_operating_point
 from linobs.operating.trim_spec import TrimResult, TrimSpec
 
 __version__ = "0.1.0"
@@ -37,9 +38,13 @@ __version__ = "0.1.0"
 __all__ = [
     "BUNDLED_PLANTS", "Capabilities", "Catalogue", "LinearModel", "LinobsError", "Model",
     "OperatingPoint", "Variable", "build_fmu", "bundled_fmu", "linearize", "load_model",
-    "resolve_point", "trim", "TrimResult", "TrimSpec", "load_study", "run_study",
+    "resolve_point", "find_operating_point", "TrimResult", "TrimSpec", "load_study", "run_study",
     "GainSchedule", "read_table", "verify_table", "write_report",
 ]
+
+
+_RENAMED = {"trim": "find_operating_point"}
+"""Public names renamed after linobs 0.1.0, with their new names (a clear error for one release)."""
 
 
 def __getattr__(name: str) -> object:  # heavier entry points load on first use
@@ -55,4 +60,7 @@ def __getattr__(name: str) -> object:  # heavier entry points load on first use
         import importlib
 
         return getattr(importlib.import_module(lazy[name]), name)
+    if name in _RENAMED:
+        raise AttributeError(f"linobs.{name} was renamed to linobs.{_RENAMED[name]} (same "
+                             f"arguments and result); use linobs.{_RENAMED[name]}")
     raise AttributeError(f"module 'linobs' has no attribute {name!r}")

@@ -35,7 +35,7 @@ class Continuation:
     """Warm-start state carried from one trim to the next along a path of neighbouring points.
 
     The caller owns it (one per path, e.g. per serpentine walk of a grid
-    chunk); :func:`linobs.operating.trim.trim` asks it for a guess and, after
+    chunk); :func:`linobs.operating.trim.find_operating_point` asks it for a guess and, after
     a converged trim, stores the solution in it.  A stored matrix is used only
     by a trim of the same structure (model, unknowns, equations, Jacobian
     method); one that does not suit the new point costs a failed line search

@@ -1,7 +1,7 @@
 """Partial trim: solve for the free states and inputs that make an operating point steady.
 
 At an operating point some variables are fixed (grid axes, study-wide values,
-start values) and some are free.  :func:`trim` solves the square system
+start values) and some are free.  :func:`find_operating_point` solves the square system
 
     der(x_i) = 0        for the states in ``zero_derivatives``
     y_j = target_j      for the outputs in ``output_targets``
@@ -49,7 +49,7 @@ from linobs.operating.trim_spec import TrimResult, TrimSpec
 if TYPE_CHECKING:  # pragma: no cover
     from linobs.model.instance import Model
 
-__all__ = ["JACOBIAN_METHODS", "Continuation", "TrimProblem", "trim"]
+__all__ = ["JACOBIAN_METHODS", "Continuation", "TrimProblem", "find_operating_point"]
 
 JACOBIAN_METHODS = ("auto", "forward", "central", "exact")
 
@@ -57,9 +57,9 @@ _ADVICE = ("try a guess closer to the solution, fallback = 'simulate', more iter
            "that the targets are reachable inside the declared bounds")
 
 
-def trim(model: "Model", fixed: Mapping[str, float], spec: TrimSpec, *,
-         guess: Mapping[str, float] | None = None, method: str = "auto",
-         continuation: Continuation | None = None) -> TrimResult:
+def find_operating_point(model: "Model", fixed: Mapping[str, float], spec: TrimSpec, *,
+                         guess: Mapping[str, float] | None = None, method: str = "auto",
+                         continuation: Continuation | None = None) -> TrimResult:
     """Find the operating point that satisfies a partial-trim specification.
 
     Parameters

@@ -27,7 +27,7 @@ from linobs.linear.linear_model import LinearModel
 from linobs.linear.linearize import linearize
 from linobs.observability.report import ObservabilityReport, ObservabilitySettings
 from linobs.operating.continuation import Continuation
-from linobs.operating.trim import trim
+from linobs.operating.trim import find_operating_point
 from linobs.operating.trim_spec import TrimResult, TrimSpec
 from linobs.run.types import Chunk, FMURef, ItemResult, WorkerContext, WorkItem
 
@@ -153,8 +153,8 @@ class _Evaluator:
     def verdict(self, values: dict[str, float], guess: dict[str, float] | None
                 ) -> tuple[str, float, TrimResult]:
         fixed = {**self.start, **self.s["parameters"], **values}
-        tr = trim(self.model, fixed, self.spec, method=self.s["method"], guess=guess,
-                  continuation=self.path)
+        tr = find_operating_point(self.model, fixed, self.spec, method=self.s["method"],
+                                  guess=guess, continuation=self.path)
         if not tr.converged:
             raise LinobsError(f"trim did not converge at {values}: {tr.message}")
         lm = linearize(self.model, tr.point(), method=self.s["method"], allow_outside_bounds=True)

@@ -18,7 +18,7 @@ from typing import TYPE_CHECKING, Any
 from linobs.errors import EvaluationError, LinobsError
 from linobs.linear.linearize import linearize
 from linobs.operating.continuation import Continuation
-from linobs.operating.trim import trim
+from linobs.operating.trim import find_operating_point
 from linobs.operating.trim_spec import TrimSpec
 from linobs.run.types import Chunk, FMURef, ItemResult, WorkerContext, WorkItem
 
@@ -91,7 +91,7 @@ def sweep_chunk(context: WorkerContext, chunk: Chunk) -> list[ItemResult]:
         model.clear_log()  # an error quotes only what this point made the FMU log
         status, data, message = "ok", {}, ""
         try:
-            tr = trim(model, fixed, spec, method=method, continuation=path)
+            tr = find_operating_point(model, fixed, spec, method=method, continuation=path)
             data["trim"] = tr.model_dump(mode="json")
             if tr.converged:
                 lm = linearize(model, tr.point(), method=method, allow_outside_bounds=True)

@@ -20,7 +20,7 @@ import numpy as np
 from linobs.errors import EvaluationError, LinobsError
 from linobs.linear.linearize import linearize
 from linobs.operating.continuation import Continuation
-from linobs.operating.trim import trim
+from linobs.operating.trim import find_operating_point
 from linobs.operating.trim_spec import TrimSpec
 from linobs.run.types import Chunk, FMURef, ItemResult, WorkerContext, WorkItem
 
@@ -76,8 +76,8 @@ def relinearize_chunk(context: WorkerContext, chunk: Chunk) -> list[ItemResult]:
         model.clear_log()
         fixed = {**start, **s["parameters"], **item.payload["values"]}
         try:
-            tr = trim(model, fixed, spec, method=s["method"], guess=item.payload["guess"],
-                      continuation=Continuation())
+            tr = find_operating_point(model, fixed, spec, method=s["method"],
+                                      guess=item.payload["guess"], continuation=Continuation())
             if tr.converged:
                 lm = linearize(model, tr.point(), method=s["method"], allow_outside_bounds=True)
                 status, data, message = "ok", {"trim": tr.model_dump(mode="json"),

@@ -22,7 +22,7 @@ from linobs.estimator.node import NodeDesign
 from linobs.estimator.schedule import GainSchedule, ScheduleData
 from linobs.linear.linear_model import LinearModel
 from linobs.linear.linearize import linearize
-from linobs.operating.trim import trim
+from linobs.operating.trim import find_operating_point
 from linobs.operating.trim_spec import TrimSpec
 
 
@@ -67,7 +67,7 @@ def trimmed_models(model, points: Sequence[Mapping[str, float]], spec: TrimSpec
                    ) -> list[LinearModel]:
     out, guess = [], None
     for point in points:
-        res = trim(model, point, spec, guess=guess)
+        res = find_operating_point(model, point, spec, guess=guess)
         assert res.converged, res.message
         guess = {**res.states, **res.inputs}
         out.append(linearize(model, res.point()))

@@ -17,7 +17,7 @@ from linobs.linear.linear_model import JacobianErrors, LinearModel, ModelIdentit
 from linobs.linear.linearize import linearize
 from linobs.model.loader import load_model
 from linobs.operating.grid import Axis, Grid
-from linobs.operating.trim import trim
+from linobs.operating.trim import find_operating_point
 from linobs.operating.trim_spec import TrimSpec
 from tests.estimator.test_schedule import kalman_filter_gain, make_node, zoh
 
@@ -243,7 +243,7 @@ def test_four_tank_kalman_schedule_passes(bundled_fmus: dict[str, Path]) -> None
 
     with load_model(bundled_fmus["four_tank"]) as model:
         def local(point: dict[str, float]) -> LinearModel:
-            res = trim(model, point, spec)
+            res = find_operating_point(model, point, spec)
             assert res.converged
             return linearize(model, res.point(), method="exact")
 

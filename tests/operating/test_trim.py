@@ -10,7 +10,7 @@ from scipy.optimize import brentq
 
 from linobs.errors import EvaluationError, UsageError
 from linobs.model.loader import load_model
-from linobs.operating.trim import Continuation, trim
+from linobs.operating.trim import Continuation, find_operating_point
 from linobs.operating.trim_spec import TrimSpec
 from tests.reference.plants import (FOUR_TANK_P_MINUS, FOUR_TANK_PARAMS, LFP_PARAMS,
                                     REACTOR_PARAMS, jacketed_reactor_energy_residual, lfp_tables,
@@ -57,7 +57,7 @@ def cell(bundled_fmus: dict[str, Path]):  # type: ignore[no-untyped-def]
 def test_four_tank_minimum_phase_point(four_tank) -> None:  # type: ignore[no-untyped-def]
     v = FOUR_TANK_P_MINUS["u"]  # Johansson (2000), Table II, P-: v1 = v2 = 3.00 V — from memory
     # tolerance 1e-13 on der(h)/10 cm: level error ≲ 1e-12 cm/s × T_max (≈ 90 s) ≈ 1e-10 cm
-    res = trim(four_tank, {"v1": v[0], "v2": v[1]}, TrimSpec(tolerance=1e-13))
+    res = find_operating_point(four_tank, {"v1": v[0], "v2": v[1]}, TrimSpec(tolerance=1e-13))
     assert res.status == "converged" and res.method == "newton"
     assert res.residual <= 1e-13
     # analytic: the flow balance (see four_tank_equilibrium)
@@ -73,7 +73,7 @@ def test_four_tank_free_inputs_meet_output_targets(four_tank) -> None:  # type: 
     h1, h2 = 12.4, 12.7  # cm: levels of the P- point, as sensor targets y = kc h
     spec = TrimSpec(free_inputs=["v1", "v2"],
                     output_targets={"y1": P["kc"] * h1, "y2": P["kc"] * h2}, tolerance=1e-13)
-    res = trim(four_tank, {}, spec)
+    res = find_operating_point(four_tank, {}, spec)
     assert res.status == "converged"
     # analytic inverse of the flow balance: with q_i = a_i √(2 g h_i),
     #   q1 = γ1 k1 v1 + (1 − γ2) k2 v2,  q2 = (1 − γ1) k1 v1 + γ2 k2 v2  (linear in v1, v2)
@@ -102,7 +102,7 @@ def test_unreachable_target_is_flagged_and_bounds_hold(four_tank, monkeypatch) -
     monkeypatch.setattr(four_tank, "evaluate_batch", recording_batch)
     # analytic: y1 = kc h1 = 15 V needs h1 = 30 cm, above the declared max of 25 cm
     spec = TrimSpec(free_inputs=["v1", "v2"], output_targets={"y1": 15.0, "y2": 6.0})
-    res = trim(four_tank, {}, spec)
+    res = find_operating_point(four_tank, {}, spec)
     assert res.status == "not_converged"
     assert res.residual > spec.tolerance and res.iterations >= 1
     assert "bounds" in res.message and "h1" in res.message
@@ -117,8 +117,8 @@ def test_unreachable_target_is_flagged_and_bounds_hold(four_tank, monkeypatch) -
 
 
 def test_iteration_limit_from_a_bad_guess_is_flagged(four_tank) -> None:  # type: ignore[no-untyped-def]
-    res = trim(four_tank, {"v1": 3.0, "v2": 3.0}, TrimSpec(max_iterations=1),
-               guess={"h1": 1.0, "h2": 20.0, "h3": 10.0, "h4": 0.1})
+    res = find_operating_point(four_tank, {"v1": 3.0, "v2": 3.0}, TrimSpec(max_iterations=1),
+                               guess={"h1": 1.0, "h2": 20.0, "h3": 10.0, "h4": 0.1})
     assert res.status == "not_converged" and not res.converged
     assert res.iterations == 1
     assert res.residual > 1e-10 and "1 iterations" in res.message
@@ -131,12 +131,12 @@ def test_iteration_limit_from_a_bad_guess_is_flagged(four_tank) -> None:  # type
 
 def test_continuation_costs_fewer_evaluations(four_tank) -> None:  # type: ignore[no-untyped-def]
     spec = TrimSpec()
-    first = trim(four_tank, {"v1": 3.8, "v2": 3.8}, spec)
-    cold = trim(four_tank, {"v1": 3.9, "v2": 3.8}, spec)
-    warm = trim(four_tank, {"v1": 3.9, "v2": 3.8}, spec, guess=first.point())
+    first = find_operating_point(four_tank, {"v1": 3.8, "v2": 3.8}, spec)
+    cold = find_operating_point(four_tank, {"v1": 3.9, "v2": 3.8}, spec)
+    warm = find_operating_point(four_tank, {"v1": 3.9, "v2": 3.8}, spec, guess=first.point())
     path = Continuation()
-    trim(four_tank, {"v1": 3.8, "v2": 3.8}, spec, continuation=path)
-    carried = trim(four_tank, {"v1": 3.9, "v2": 3.8}, spec, continuation=path)
+    find_operating_point(four_tank, {"v1": 3.8, "v2": 3.8}, spec, continuation=path)
+    carried = find_operating_point(four_tank, {"v1": 3.9, "v2": 3.8}, spec, continuation=path)
     for res in (first, cold, warm, carried):
         assert res.status == "converged"
     # common practice: a neighbour's solution is a better start than the start values
@@ -161,7 +161,8 @@ def test_failed_trial_step_only_shortens_the_step(four_tank, monkeypatch) -> Non
         return evaluate(x, u)
 
     monkeypatch.setattr(four_tank, "evaluate", flaky)
-    res = trim(four_tank, {"v1": 3.2, "v2": 2.9}, TrimSpec(), guess={"h1": 8.0, "h4": 3.0})
+    res = find_operating_point(four_tank, {"v1": 3.2, "v2": 2.9}, TrimSpec(),
+                               guess={"h1": 8.0, "h4": 3.0})
     assert failures and res.status == "converged"
     # analytic: the flow balance
     np.testing.assert_allclose(levels(res), four_tank_equilibrium(3.2, 2.9), rtol=1e-7)
@@ -173,26 +174,27 @@ def test_failure_outside_the_line_search_propagates(four_tank, monkeypatch) -> N
 
     monkeypatch.setattr(four_tank, "evaluate", broken)
     with pytest.raises(EvaluationError):
-        trim(four_tank, {"v1": 3.0, "v2": 3.0}, TrimSpec())
+        find_operating_point(four_tank, {"v1": 3.0, "v2": 3.0}, TrimSpec())
 
 
 def test_non_square_spec_is_a_usage_error(four_tank) -> None:  # type: ignore[no-untyped-def]
     with pytest.raises(UsageError) as info:
-        trim(four_tank, {}, TrimSpec(free_inputs=["v1"]))  # 5 unknowns, 4 equations
+        find_operating_point(four_tank, {}, TrimSpec(free_inputs=["v1"]))  # 5 unknowns, 4 equations
     text = str(info.value)
     assert "not square" in text and "free inputs: v1" in text and "zero derivatives" in text
     assert "output targets: none" in text
     with pytest.raises(UsageError):
-        trim(four_tank, {"h1": 10.0}, TrimSpec(free_states=["h1", "h2", "h3", "h4"]))
+        find_operating_point(four_tank, {"h1": 10.0},
+                             TrimSpec(free_states=["h1", "h2", "h3", "h4"]))
     with pytest.raises(UsageError):
-        trim(four_tank, {}, TrimSpec(), method="spline")
+        find_operating_point(four_tank, {}, TrimSpec(), method="spline")
 
 
 def test_disabled_trim_returns_the_point_as_given(cell) -> None:  # type: ignore[no-untyped-def]
     fixed = {"soc": 0.8, "v_rc1": 0.01, "i_cell": 10.0, "t_amb": 5.0}
     spec = TrimSpec(enabled=False, pinned_states=["soc"])
     before = cell.evaluations
-    res = trim(cell, fixed, spec)
+    res = find_operating_point(cell, fixed, spec)
     assert res.status == "skipped" and res.method == "none" and res.converged
     assert res.evaluations == 1 and cell.evaluations - before == 1
     assert res.states["soc"] == 0.8 and res.states["v_rc1"] == 0.01
@@ -226,7 +228,7 @@ def test_cell_steady_state_at_constant_current(cell, soc: float, current: float,
                                                t_amb: float) -> None:  # type: ignore[no-untyped-def]
     fixed = {"soc": soc, "i_cell": current, "t_amb": t_amb}
     # tolerance 1e-12 on der(T)/25 K: T error ≲ 2.5e-11 K/s × m cp / hA (825 s) ≈ 2e-8 K
-    res = trim(cell, fixed, TrimSpec(pinned_states=["soc"], tolerance=1e-12))
+    res = find_operating_point(cell, fixed, TrimSpec(pinned_states=["soc"], tolerance=1e-12))
     assert res.status == "converged"
     assert res.states["soc"] == soc
     # analytic: steady RC branches v_k = i R_k, thermal balance (see cell_steady_state)
@@ -250,9 +252,10 @@ def test_simulation_fallback_rescues_a_bad_guess(cell) -> None:  # type: ignore[
     # against the bounds of temp_cell and v_rc2 and crawl; the physical trajectory escapes.
     fixed = {"soc": 0.5, "i_cell": 40.0, "t_amb": -10.0}
     guess = {"v_rc1": 0.039, "v_rc2": -1.359, "temp_cell": -20.247}
-    plain = trim(cell, fixed, TrimSpec(pinned_states=["soc"]), guess=guess)
+    plain = find_operating_point(cell, fixed, TrimSpec(pinned_states=["soc"]), guess=guess)
     assert plain.status == "not_converged" and plain.method == "newton"
-    rescued = trim(cell, fixed, TrimSpec(pinned_states=["soc"], fallback="simulate"), guess=guess)
+    rescued = find_operating_point(cell, fixed, TrimSpec(pinned_states=["soc"], fallback="simulate"),
+                                   guess=guess)
     assert rescued.status == "converged" and rescued.method == "simulation"
     assert "settled over" in rescued.message
     assert rescued.evaluations > plain.evaluations
@@ -269,7 +272,8 @@ def test_simulation_fallback_rescues_a_bad_guess(cell) -> None:  # type: ignore[
 def test_reactor_temperature_is_a_root_of_the_energy_balance(bundled_fmus: dict[str, Path],
                                                              valve: float, temp_feed: float) -> None:
     with load_model(bundled_fmus["jacketed_reactor"]) as model:
-        res = trim(model, {"valve": valve, "temp_feed": temp_feed}, TrimSpec(tolerance=1e-12))
+        res = find_operating_point(model, {"valve": valve, "temp_feed": temp_feed},
+                                   TrimSpec(tolerance=1e-12))
     assert res.status == "converged"
     temp = res.states["temp"]
     # analytic elimination of c_a and temp_jacket (tests.reference.plants), root by scipy brentq
@@ -282,3 +286,16 @@ def test_reactor_temperature_is_a_root_of_the_energy_balance(bundled_fmus: dict[
     flow, volume = REACTOR_PARAMS["flow_feed"], REACTOR_PARAMS["volume"]
     c_a = flow * REACTOR_PARAMS["c_a_feed"] / (flow + volume * reactor_rate_constant(temp))
     assert res.states["c_a"] == pytest.approx(c_a, rel=1e-9)
+
+
+# ------------------------------------------------------------------ the package's name for it
+def test_package_exports_find_operating_point_and_names_the_old_trim() -> None:
+    import linobs
+
+    assert linobs.find_operating_point is find_operating_point
+    assert "find_operating_point" in linobs.__all__ and "trim" not in linobs.__all__
+    with pytest.raises(AttributeError, match="linobs.trim was renamed to "
+                                             "linobs.find_operating_point"):
+        linobs.trim  # noqa: B018 - the attribute access is the test
+    with pytest.raises(AttributeError, match="no attribute 'no_such_name'"):
+        linobs.no_such_name  # noqa: B018
