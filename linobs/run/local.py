@@ -6,15 +6,19 @@ processes' sentinels together (:func:`multiprocessing.connection.wait`), so
 it learns at once both that a chunk finished and that a worker died.
 
 Start method
-    ``forkserver`` on Linux (``spawn`` elsewhere).  ``fork`` is the fastest
-    but copies a process that may already run threads (a progress-bar
-    refresher, a Dask client, BLAS pools), and a forked child can inherit a
-    lock held by a thread that does not exist in it; ``spawn`` and
-    ``forkserver`` start from a clean interpreter.  The fork server imports
-    linobs once (``set_forkserver_preload``), so starting or restarting a
-    worker is a fork of that warm, single-threaded server: milliseconds
-    instead of the ~0.5 s of a spawned interpreter importing numpy — which
-    matters when a supplier FMU crashes at dozens of points.
+    ``auto`` on Linux: ``fork`` while the coordinator runs a single thread,
+    else ``forkserver``; ``spawn`` elsewhere.  ``fork`` is the fastest (the
+    child has linobs, numpy and fmpy imported already: a worker is ready in
+    milliseconds, which is most of the fixed cost of a small study) but
+    copies a process that may run threads (a progress-bar refresher, a Dask
+    client), and a forked child can inherit a lock held by a thread that does
+    not exist in it; so it is used only when the coordinator has no other
+    Python thread at the moment the worker starts.  The child touches none of
+    the coordinator's open resources (run store, FMU instances) and leaves
+    through ``os._exit``.  ``spawn`` and ``forkserver`` start from a clean
+    interpreter; the fork server imports linobs once
+    (``set_forkserver_preload``), so starting or restarting a worker is a fork
+    of that warm, single-threaded server.
 
 Crash isolation
     A worker that dies inside a chunk (segfault, abort, ``os._exit``, killed)
@@ -31,6 +35,7 @@ orphans behind).
 
 from __future__ import annotations
 
+import faulthandler
 import math
 import multiprocessing
 import multiprocessing.connection
@@ -75,10 +80,15 @@ def available_cpus() -> int:
 
 
 def default_start_method() -> str:
-    """``forkserver`` where it exists and is safe (Linux), else ``spawn``."""
+    """``auto`` (fork when single-threaded, else forkserver) on Linux, else ``spawn``."""
     if sys.platform.startswith("linux") and "forkserver" in multiprocessing.get_all_start_methods():
-        return "forkserver"
+        return "auto"
     return "spawn"
+
+
+def _fork_is_safe() -> bool:
+    """No other Python thread runs in this process (so no lock can be inherited held)."""
+    return threading.active_count() == 1
 
 
 # ---------------------------------------------------------------------- worker side
@@ -107,7 +117,8 @@ def _exit_with_parent() -> None:
 def _worker_main(conn: multiprocessing.connection.Connection) -> None:
     """Body of a pool worker: run chunks until told to stop or the pipe closes."""
     signal.signal(signal.SIGINT, signal.SIG_IGN)
-    _no_core_files()
+    faulthandler.disable()  # a forked child inherits the parent's; a crash is reported by the
+    _no_core_files()        # coordinator in one line, not as a traceback dump per process
     _exit_with_parent()
     context = ProcessWorkerContext()
     conn.send(("ready", os.getpid()))
@@ -176,9 +187,13 @@ class LocalPoolExecutor:
         self.workers = workers if workers is not None else available_cpus()
         self.timeout = timeout
         method = start_method or default_start_method()
-        self._mp = multiprocessing.get_context(method)
-        if method == "forkserver":
+        if method not in ("auto", "fork", "forkserver", "spawn"):
+            raise UsageError(f"unknown start method {method!r}; use auto, fork, forkserver or spawn")
+        self.start_method = method
+        self._mp = multiprocessing.get_context("forkserver" if method == "auto" else method)
+        if method in ("forkserver", "auto"):
             self._mp.set_forkserver_preload(["linobs.run.local"])
+        self._fork = multiprocessing.get_context("fork") if method == "auto" else None
         self._slots: list[_Slot] = []
         self._stats: dict[int, WorkerStats] = {}
         self._closed = False
@@ -186,9 +201,10 @@ class LocalPoolExecutor:
 
     # ------------------------------------------------------------------ processes
     def _start_worker(self) -> _Slot:
-        parent, child = self._mp.Pipe(duplex=True)
-        process = self._mp.Process(target=_worker_main, args=(child,), name="linobs-worker",
-                                   daemon=True)
+        mp = self._fork if self._fork is not None and _fork_is_safe() else self._mp
+        parent, child = mp.Pipe(duplex=True)
+        process = mp.Process(target=_worker_main, args=(child,), name="linobs-worker",
+                             daemon=True)
         process.start()
         child.close()
         return _Slot(process=process, conn=parent)

@@ -25,6 +25,13 @@ Tables
 ``results(stage, item_id, chunk_id, status, data, message, evaluations, seconds)``
     One row per item and stage, primary key ``(stage, item_id)``; ``data`` is
     JSON.
+``columns(seq, stage, chunk_id, blob)``
+    Stacked arrays of a chunk whose task answered with
+    :class:`~linobs.run.columns.ColumnarResults` (one ``.npz`` blob per chunk,
+    written in the same transaction as the chunk's rows, whose ``data`` is
+    then empty).  An item's authoritative arrays are those of the chunk named
+    in its ``results`` row (a chunk split by a crash, or recomputed on
+    resume, writes a new blob; older blobs are shadowed).
 ``stages(stage, info, completed)``
     Stages marked complete, with a JSON summary.
 
@@ -43,14 +50,19 @@ from datetime import UTC, datetime
 from pathlib import Path
 from typing import Any
 
+import numpy as np
+
 from linobs.errors import LinobsError, UsageError
+from linobs.run.columns import ColumnarResults, pack, unpack
 from linobs.run.types import STATUSES, ItemResult
 
 __all__ = ["IDENTITY_KEYS", "STORE_FILE", "RunStore"]
 
 STORE_FILE = "run.sqlite"
 LOCK_FILE = "run.lock"
-STORE_FORMAT = "1"
+STORE_FORMAT = "2"
+#: Formats this linobs reads (1: one JSON object per item; 2 adds columnar chunks).
+READABLE_FORMATS = ("2",)
 #: Identity entries that must match for a run to be resumed.
 IDENTITY_KEYS = ("study_hash", "fmu_sha256")
 _WHAT = {"study_hash": "study", "fmu_sha256": "FMU"}
@@ -71,6 +83,13 @@ CREATE TABLE IF NOT EXISTS results (
     seconds     REAL    NOT NULL,
     PRIMARY KEY (stage, item_id)
 );
+CREATE TABLE IF NOT EXISTS columns (
+    seq      INTEGER PRIMARY KEY AUTOINCREMENT,
+    stage    TEXT NOT NULL,
+    chunk_id TEXT NOT NULL,
+    blob     BLOB NOT NULL
+);
+CREATE INDEX IF NOT EXISTS columns_by_stage ON columns (stage, chunk_id);
 CREATE TABLE IF NOT EXISTS stages (
     stage     TEXT PRIMARY KEY,
     info      TEXT NOT NULL,
@@ -112,11 +131,32 @@ class _RunLock:
             raise UsageError(f"another linobs process is running the run in {run_dir}; wait "
                              f"for it to finish or choose another folder") from None
         self._fd = fd
+        _HELD.add(fd)
 
     def release(self) -> None:
         if self._fd is not None:
-            os.close(self._fd)  # closing the descriptor releases the flock
+            _HELD.discard(self._fd)
+            os.close(self._fd)  # closing the descriptor releases the lock
             self._fd = None
+
+
+_HELD: set[int] = set()
+"""Descriptors of the run locks this process holds."""
+
+
+def _drop_inherited_locks() -> None:
+    """In a forked child (a pool worker): let go of the parent's lock descriptors, so the
+    lock lives exactly as long as the coordinator holds it."""
+    for fd in list(_HELD):
+        try:
+            os.close(fd)
+        except OSError:
+            pass
+    _HELD.clear()
+
+
+if hasattr(os, "register_at_fork"):
+    os.register_at_fork(after_in_child=_drop_inherited_locks)
 
 
 class RunStore:
@@ -130,6 +170,9 @@ class RunStore:
         # decoded results per stage, dropped when the stage is written to (the coordinator
         # reads the sweep's results in several stages; JSON decoding dominates there)
         self._cache: dict[str, list[ItemResult]] = {}
+        self._column_cache: dict[str, tuple[np.ndarray, list[dict[str, Any]],
+                                            list[dict[str, np.ndarray]], np.ndarray,
+                                            np.ndarray]] = {}
 
     # ------------------------------------------------------------------ opening
     @classmethod
@@ -201,10 +244,12 @@ class RunStore:
                 db.executemany("INSERT OR REPLACE INTO meta (key, value) VALUES (?, ?)",
                                list(values.items()))
             return
-        if stored["store_format"] != STORE_FORMAT:
+        if stored["store_format"] not in READABLE_FORMATS:
             raise LinobsError(f"{self.path} was written in run-store format "
                               f"{stored['store_format']}, this linobs reads format "
-                              f"{STORE_FORMAT}; resume it with the linobs version that started it")
+                              f"{', '.join(READABLE_FORMATS)} (columnar results); resume it with "
+                              f"the linobs version that started it, or start the study again "
+                              f"in a new folder")
         for key in IDENTITY_KEYS:
             if stored.get(key) != identity[key]:
                 raise UsageError(
@@ -236,9 +281,16 @@ class RunStore:
                                 f"JSON-compatible ({exc})") from None
             rows.append((stage, int(r.item_id), chunk_id, r.status, data, r.message,
                          int(r.evaluations), float(r.seconds)))
+        blob = pack({"item_id": np.array([int(r.item_id) for r in results], dtype=np.int64),
+                     **results.arrays}, results.meta) \
+            if isinstance(results, ColumnarResults) else None
         self._cache.pop(stage, None)
+        self._column_cache.pop(stage, None)
         with self._transaction():
             self._db.executemany(_UPSERT, rows)
+            if blob is not None:
+                self._db.execute("INSERT INTO columns (stage, chunk_id, blob) VALUES (?, ?, ?)",
+                                 (stage, chunk_id, blob))
 
     def mark_stage_complete(self, stage: str, info: Mapping[str, Any]) -> None:
         """Record that ``stage`` finished, with a JSON-compatible summary."""
@@ -269,6 +321,54 @@ class RunStore:
                       for i, s, d, m, e, t in rows]
             self._cache[stage] = cached
         return list(cached)
+
+    def columns(self, stage: str) -> tuple[np.ndarray, list[dict[str, Any]],
+                                           list[dict[str, np.ndarray]], np.ndarray, np.ndarray]:
+        """The columnar chunks of ``stage``, decoded once (shared: read, do not modify).
+
+        Returns
+        -------
+        (item_ids, metas, arrays, chunk_of, row_of)
+            ``item_ids``: the ids that have columnar results, sorted;
+            ``metas``/``arrays``: per stored chunk (in writing order) its meta
+            dict and its arrays; ``chunk_of[k]``/``row_of[k]``: where the
+            authoritative row of ``item_ids[k]`` is (the chunk its result row
+            names; the newest such blob).
+
+        Raises
+        ------
+        LinobsError
+            A stored blob cannot be decoded (a damaged run store).
+        """
+        cached = self._column_cache.get(stage)
+        if cached is not None:
+            return cached
+        owner = dict(self._db.execute("SELECT item_id, chunk_id FROM results WHERE stage = ?",
+                                      (stage,)).fetchall())
+        metas: list[dict[str, Any]] = []
+        blocks: list[dict[str, np.ndarray]] = []
+        where: dict[int, tuple[int, int]] = {}
+        rows = self._db.execute("SELECT seq, chunk_id, blob FROM columns WHERE stage = ? "
+                                "ORDER BY seq", (stage,))
+        for seq, chunk_id, blob in rows:
+            try:
+                arrays, meta = unpack(blob)
+            except ValueError as exc:
+                raise LinobsError(f"{self.path}: the stored results of chunk {chunk_id} "
+                                  f"({stage}) are damaged ({exc}); run the study again in a "
+                                  f"new folder") from None
+            index = len(blocks)
+            metas.append(meta)
+            blocks.append(arrays)
+            for row, item in enumerate(arrays["item_id"].tolist()):
+                if owner.get(item) == chunk_id:
+                    where[item] = (index, row)  # a later blob of the same chunk id wins
+        ids = np.array(sorted(where), dtype=np.int64)
+        chunk_of = np.array([where[i][0] for i in ids.tolist()], dtype=np.int64)
+        row_of = np.array([where[i][1] for i in ids.tolist()], dtype=np.int64)
+        cached = (ids, metas, blocks, chunk_of, row_of)
+        self._column_cache[stage] = cached
+        return cached
 
     def counts(self, stage: str) -> dict[str, int]:
         """Number of stored results of ``stage`` per status (every status listed)."""
