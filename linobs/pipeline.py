@@ -14,7 +14,7 @@ from collections.abc import Callable, Sequence
 from pathlib import Path
 from typing import Any
 
-from pydantic import BaseModel, Field
+from pydantic import AliasChoices, BaseModel, Field
 
 import linobs
 from linobs.atomic import atomic_write_json
@@ -82,8 +82,11 @@ class RunSummary(BaseModel):
     design_ok: int | None = None
     design_refused: int | None = None
     continuity_flags: int | None = None
-    validation_worst_margin: float | None = Field(
-        None, description="smallest frozen-point margin to the stability target (< 0: a failure)")
+    validation_worst_decay_reserve: float | None = Field(
+        None, validation_alias=AliasChoices("validation_worst_decay_reserve",
+                                            "validation_worst_margin"),
+        description="smallest frozen-point decay reserve: how much faster than required the "
+                    "error decays (< 0: a failure); read also as validation_worst_margin")
     validation_frozen_passed: int | None = None
     validation_frozen_failed: int | None = None
     validation_rms: dict[str, float | None] | None = Field(
@@ -291,7 +294,7 @@ def _summary(study: Study, stages: dict[str, StageSummary], executor: Any,
         extra["validation_frozen_passed"] = frozen.counts.get("passed", 0)
         extra["validation_frozen_failed"] = frozen.counts.get("failed", 0) + \
             frozen.counts.get("unusable", 0) + frozen.counts.get("errors", 0)
-        extra["validation_worst_margin"] = frozen.counts.get("worst_margin")
+        extra["validation_worst_decay_reserve"] = frozen.counts.get("worst_decay_reserve")
     exp = stages.get("export")
     if exp is not None:
         extra["export_usable"] = exp.counts.get("exported_usable")

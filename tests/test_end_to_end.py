@@ -49,7 +49,7 @@ def test_demo_runs_the_cell_end_to_end(tmp_path: Path) -> None:
 def test_example_study_runs_every_stage_and_verifies(example: str, tmp_path: Path) -> None:
     summary = run_study(EXAMPLES / f"{example}.toml", tmp_path / "run", figures=False)
     assert summary.ok == summary.points and summary.design_ok == summary.points
-    assert summary.validation_frozen_failed == 0 and summary.validation_worst_margin > 0
+    assert summary.validation_frozen_failed == 0 and summary.validation_worst_decay_reserve > 0
     assert summary.export_usable == summary.points
     table = tmp_path / "run" / "export" / "schedule_table.json"
     report = verify_table(table, summary.fmu, sample=4)

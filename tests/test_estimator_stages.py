@@ -82,13 +82,13 @@ def kalman_run(tmp_path_factory: pytest.TempPathFactory) -> tuple[dict, Path]:
 def test_summary_has_the_design_and_validation_keys(kalman_run: tuple[dict, Path]) -> None:
     summary, run = kalman_run
     on_disk = json.loads((run / "summary.json").read_text())
-    for key in ("design_ok", "design_refused", "validation_worst_margin", "validation_rms",
+    for key in ("design_ok", "design_refused", "validation_worst_decay_reserve", "validation_rms",
                 "fixed_gain_rms"):
         assert key in on_disk and on_disk[key] == summary[key]
     assert summary["design_ok"] == 16 and summary["design_refused"] == 0
     assert set(summary["validation_rms"]) == set(summary["fixed_gain_rms"]) == set(
         plants.FOUR_TANK_STATES)
-    for name in ("validation_states", "validation_errors", "validation_margin"):
+    for name in ("validation_states", "validation_errors", "validation_decay_reserve"):
         assert (run / "figures" / f"{name}.png").stat().st_size > 1000
 
 
@@ -127,7 +127,7 @@ def test_frozen_points_pass_and_schedule_interpolates_at_nodes(
     frozen = json.loads((run / "validation" / "frozen.json").read_text())
     # 9 cell centres of a 4 × 4 grid + 10 random interior points
     assert summary["validation_frozen_passed"] == 19 and summary["validation_frozen_failed"] == 0
-    assert summary["validation_worst_margin"] > 0
+    assert summary["validation_worst_decay_reserve"] > 0
     radii = [p["spectral_radius"] for p in frozen["points"]]
     assert len(radii) == 19 and max(radii) <= 0.999
     # analytic: multilinear interpolation reproduces the node values at the nodes

@@ -1,4 +1,4 @@
-"""Frozen-point validation of a gain schedule: is the interpolated gain stabilising between nodes?
+"""Frozen-point validation of a gain schedule: is the interpolated gain stabilizing between nodes?
 
 Each node's design is stable by construction; the question is what happens
 between the nodes.  At a scheduling value ``s`` between the nodes, the check
@@ -19,14 +19,19 @@ as an input.
 
 The criterion follows the design's domain:
 
-* ``discrete``: spectral radius ρ ≤ ``spectral_radius_max``; margin
+* ``discrete``: spectral radius ρ ≤ ``spectral_radius_max``; decay reserve
   ``spectral_radius_max − ρ``.
 * ``continuous``: the continuous error dynamics A_true − L_c C_true with the
   interpolated continuous gain L_c must decay at least at
   ``decay_rate_min`` (decay rate = −max Re λ), and so must the sampled update
   that runs (its equivalent rate −ln ρ / Ts), which must also be
-  asymptotically stable (ρ < 1).  Margin: the smaller rate minus
+  asymptotically stable (ρ < 1).  Decay reserve: the smaller rate minus
   ``decay_rate_min`` [1/s].  Without L_c only the sampled update is checked.
+
+The **decay reserve** is how much faster the error decays than required
+(≥ 0: the point passes).  Stored results written before it had this name
+call it ``margin`` (``worst_margin`` for the smallest); both spellings are
+read.
 
 Where the interpolation is not usable (a refused node), the update runs
 without correction: the point fails as ``unusable``, with the spectral radius
@@ -67,7 +72,7 @@ from collections.abc import Callable, Mapping, Sequence
 from typing import TYPE_CHECKING, Literal
 
 import numpy as np
-from pydantic import BaseModel, Field
+from pydantic import AliasChoices, BaseModel, Field
 
 from linobs.errors import UsageError
 from linobs.estimator.interpolation import Triangulation, cell_centres
@@ -96,8 +101,10 @@ class FrozenPoint(BaseModel):
         None, description="of the sampled error dynamics that run (unusable: the prediction alone)")
     decay_rate: float | None = Field(
         None, description="continuous designs: −max Re λ(A − L_c C) [1/s]")
-    margin: float | None = Field(
-        None, description="discrete: target − ρ; continuous: decay rate − target [1/s]")
+    decay_reserve: float | None = Field(
+        None, validation_alias=AliasChoices("decay_reserve", "margin"),
+        description="how much faster the error decays than required (≥ 0: passes); discrete: "
+                    "target − ρ; continuous: decay rate − target [1/s]")
     model_mismatch: float | None = Field(
         None, description="‖[Φ̂ − Φ; Ĉ − C]‖_F / ‖[Φ; C]‖_F, interpolated against true")
     message: str = ""
@@ -112,13 +119,15 @@ class FrozenReport(BaseModel):
     criterion: str = Field(description="the stability requirement checked")
     target: float = Field(description="spectral_radius_max (discrete) or decay_rate_min [1/s]")
     points: list[FrozenPoint] = Field(description="worst first: errors, unusable, failed by "
-                                                  "margin, then passed by margin")
+                                                  "decay reserve, then passed by decay reserve")
     count: int
     passed: int
-    failed: int = Field(description="usable points that miss the margin")
+    failed: int = Field(description="usable points that miss the required decay")
     unusable: int
     errors: int = Field(description="points where the local model could not be had")
-    worst_margin: float | None = Field(None, description="smallest margin of the usable points")
+    worst_decay_reserve: float | None = Field(
+        None, validation_alias=AliasChoices("worst_decay_reserve", "worst_margin"),
+        description="smallest decay reserve of the usable points")
     all_passed: bool
 
 
@@ -203,7 +212,7 @@ def _true_matrices(model: LinearModel, states: list[str], outputs: list[str]
 
 def _rank(p: FrozenPoint) -> tuple[int, float]:
     order = {"error": 0, "unusable": 1, "fail": 2, "pass": 3}[p.status]
-    return order, (p.margin if p.margin is not None else -math.inf)
+    return order, (p.decay_reserve if p.decay_reserve is not None else -math.inf)
 
 
 def frozen_point_check(schedule: GainSchedule, points: Sequence[Mapping[str, float]],
@@ -231,7 +240,7 @@ def frozen_point_check(schedule: GainSchedule, points: Sequence[Mapping[str, flo
     Returns
     -------
     FrozenReport
-        Per point the values, spectral radius / decay rate, margin, pass/fail,
+        Per point the values, spectral radius / decay rate, decay reserve, pass/fail,
         usability, model mismatch; the worst points first; counts.
 
     Raises
@@ -287,12 +296,12 @@ def frozen_point_check(schedule: GainSchedule, points: Sequence[Mapping[str, flo
             if continuous:
                 sampled = -math.log(r) / Ts if r > 0 else math.inf
                 rate = sampled if dc is None else min(dc, sampled)
-                margin = rate - target
-                ok = margin >= 0 and r < 1
+                reserve = rate - target
+                ok = reserve >= 0 and r < 1
                 shown = f"decay rate {rate:.4g} /s (target ≥ {target:g})"
             else:
-                margin = target - r
-                ok = margin >= 0
+                reserve = target - r
+                ok = reserve >= 0
                 shown = f"spectral radius {r:.6g} (target ≤ {target:g})"
             if not usable[row]:
                 status: Status = "unusable"
@@ -300,11 +309,12 @@ def frozen_point_check(schedule: GainSchedule, points: Sequence[Mapping[str, flo
                            f"correction; open-loop prediction {shown}")
             else:
                 status = "pass" if ok else "fail"
-                message = shown if ok else f"{shown}: the interpolated gain misses the margin"
+                message = (shown if ok else
+                           f"{shown}: the interpolated gain misses the required decay")
             results.append(FrozenPoint(
                 index=int(k), values=pts[k], status=status, passed=status == "pass",
                 usable=bool(usable[row]), outside=bool(batch.outside[k]), spectral_radius=r,
-                decay_rate=dc if continuous else None, margin=float(margin),
+                decay_rate=dc if continuous else None, decay_reserve=float(reserve),
                 model_mismatch=float(mismatch[row]), message=message))
     for k, message in problems.items():
         results.append(FrozenPoint(
@@ -312,13 +322,13 @@ def frozen_point_check(schedule: GainSchedule, points: Sequence[Mapping[str, flo
             usable=bool(batch.usable[k]) if batch is not None else False,
             outside=bool(batch.outside[k]) if batch is not None else False, message=message))
     results.sort(key=lambda fp: (*_rank(fp), fp.index))
-    margins = [fp.margin for fp in results if fp.usable and fp.margin is not None
-               and fp.status != "error"]
+    reserves = [fp.decay_reserve for fp in results if fp.usable and fp.decay_reserve is not None
+                and fp.status != "error"]
     counts = {s: sum(fp.status == s for fp in results) for s in ("pass", "fail", "unusable",
                                                                  "error")}
     return FrozenReport(kind=schedule.kind, domain=schedule.domain, form=schedule.form,
                         criterion=criterion, target=float(target), points=results,
                         count=len(results), passed=counts["pass"], failed=counts["fail"],
                         unusable=counts["unusable"], errors=counts["error"],
-                        worst_margin=min(margins) if margins else None,
+                        worst_decay_reserve=min(reserves) if reserves else None,
                         all_passed=bool(results) and counts["pass"] == len(results))

@@ -61,8 +61,8 @@ def node_validations(schedule: GainSchedule, own: FrozenReport, between: FrozenR
             checked[used] += 1
             if p.status in ("fail", "error"):
                 failed[used] += 1
-            if p.margin is not None:
-                worst[used] = np.minimum(worst[used], p.margin)
+            if p.decay_reserve is not None:
+                worst[used] = np.minimum(worst[used], p.decay_reserve)
     out = []
     for i, node in enumerate(data.nodes):
         point = schedule.node_point(i)
@@ -81,9 +81,9 @@ def node_validations(schedule: GainSchedule, own: FrozenReport, between: FrozenR
             message = ""
         out.append(NodeValidation(
             node=i, point=point, designed=designed, passed=passed, usable=passed,
-            node_margin=None if mine is None else mine.margin,
+            node_decay_reserve=None if mine is None else mine.decay_reserve,
             frozen_checked=int(checked[i]), frozen_failed=int(failed[i]),
-            worst_frozen_margin=None if not np.isfinite(worst[i]) else float(worst[i]),
+            worst_frozen_decay_reserve=None if not np.isfinite(worst[i]) else float(worst[i]),
             message=message))
     return out
 
@@ -149,7 +149,8 @@ def build_table(schedule: GainSchedule, *, caution: str, study: str, study_hash:
         linearize_method=linearize_method,
         validation=TableValidation(
             criterion=between.criterion, target=between.target, frozen_passed=between.passed,
-            frozen_failed=between.failed + between.errors, worst_margin=between.worst_margin,
+            frozen_failed=between.failed + between.errors,
+            worst_decay_reserve=between.worst_decay_reserve,
             nonlinear_rms=dict(nonlinear_rms or {}), fixed_gain_rms=dict(fixed_gain_rms or {}),
             nodes=nodes),
         allow_failed=bool(bad), schedule=sched.model_dump(mode="json"))

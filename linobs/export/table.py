@@ -25,6 +25,17 @@ Checksum
 SHA-256 of the canonical JSON of every field except ``checksum`` (keys
 sorted, no spaces, UTF-8): :func:`content_checksum`.  Any edit of a value
 changes it; :func:`read_table` rejects a table whose checksum does not match.
+It checks the content as stored in the file, so a table written with older
+key names keeps its checksum when it is read.
+
+Schema versions
+---------------
+Version 2 renamed the frozen-point *margin* to the **decay reserve** (how
+much faster the error decays than required): ``node_margin`` →
+``node_decay_reserve``, ``worst_frozen_margin`` →
+``worst_frozen_decay_reserve`` (per node) and ``worst_margin`` →
+``worst_decay_reserve`` (``validation``).  Version 1 tables are still read,
+under their own key names and checksum; new tables are written as version 2.
 
 References
 ----------
@@ -40,17 +51,19 @@ from datetime import datetime, timezone
 from pathlib import Path
 from typing import Any, Literal
 
-from pydantic import BaseModel, ConfigDict, Field, ValidationError
+from pydantic import AliasChoices, BaseModel, ConfigDict, Field, ValidationError
 
 from linobs.atomic import atomic_write_text
 from linobs.errors import LinobsError, UsageError
 
-__all__ = ["FORMAT", "SCHEMA_VERSION", "FmuIdentity", "NodeValidation", "ScheduleTable",
-           "TableAxis", "TableError", "content_checksum", "fmu_identity", "read_table",
-           "seal_table", "table_schema", "write_table"]
+__all__ = ["FORMAT", "READABLE_SCHEMA_VERSIONS", "SCHEMA_VERSION", "FmuIdentity", "NodeValidation",
+           "ScheduleTable", "TableAxis", "TableError", "content_checksum", "fmu_identity",
+           "read_table", "seal_table", "table_schema", "write_table"]
 
 FORMAT = "linobs-schedule-table"
-SCHEMA_VERSION = 1
+SCHEMA_VERSION = 2
+READABLE_SCHEMA_VERSIONS = (1, 2)
+"""Versions :func:`read_table` accepts (module notes: what changed)."""
 
 
 class TableError(LinobsError):
@@ -88,12 +101,17 @@ class NodeValidation(BaseModel):
     node: int
     point: dict[str, float]
     designed: bool
-    passed: bool = Field(description="designed, own margin met, and no failing frozen point uses it")
+    passed: bool = Field(description="designed, its own error dynamics decay as required, and no "
+                                     "failing frozen point uses it")
     usable: bool = Field(description="exported as usable")
-    node_margin: float | None = Field(None, description="margin of the node's own error dynamics")
+    node_decay_reserve: float | None = Field(
+        None, validation_alias=AliasChoices("node_decay_reserve", "node_margin"),
+        description="decay reserve of the node's own error dynamics (≥ 0: passes)")
     frozen_checked: int = Field(0, description="frozen points that use this node")
     frozen_failed: int = 0
-    worst_frozen_margin: float | None = None
+    worst_frozen_decay_reserve: float | None = Field(
+        None, validation_alias=AliasChoices("worst_frozen_decay_reserve", "worst_frozen_margin"),
+        description="smallest decay reserve of the frozen points that use this node")
     message: str = ""
 
 
@@ -106,7 +124,9 @@ class TableValidation(BaseModel):
     target: float
     frozen_passed: int
     frozen_failed: int
-    worst_margin: float | None
+    worst_decay_reserve: float | None = Field(
+        validation_alias=AliasChoices("worst_decay_reserve", "worst_margin"),
+        description="smallest decay reserve of the frozen points")
     nonlinear_rms: dict[str, float] = Field(default_factory=dict)
     fixed_gain_rms: dict[str, float] = Field(default_factory=dict)
     nodes: list[NodeValidation]
@@ -196,8 +216,12 @@ def now_utc() -> str:
 
 
 def seal_table(table: ScheduleTable) -> ScheduleTable:
-    """A copy of the table carrying the checksum of its content."""
-    sealed = table.model_copy(update={"checksum": ""})
+    """A copy of the table carrying the checksum of its content.
+
+    The copy is written with this version's key names, so it says
+    :data:`SCHEMA_VERSION` (also when the table was read from an older file).
+    """
+    sealed = table.model_copy(update={"checksum": "", "schema_version": SCHEMA_VERSION})
     return sealed.model_copy(update={"checksum": content_checksum(sealed)})
 
 
@@ -238,9 +262,10 @@ def read_table(path: str | os.PathLike[str], *, check: bool = True) -> ScheduleT
     if not isinstance(raw, dict) or raw.get("format") != FORMAT:
         raise TableError(f"{p} is not a linobs schedule table (its 'format' is not {FORMAT!r})")
     version = raw.get("schema_version")
-    if version != SCHEMA_VERSION:
-        raise TableError(f"{p} has schema_version {version!r}; this linobs reads version "
-                         f"{SCHEMA_VERSION} — export the table again with this version")
+    if type(version) is not int or version not in READABLE_SCHEMA_VERSIONS:
+        shown = " and ".join(str(v) for v in READABLE_SCHEMA_VERSIONS)
+        raise TableError(f"{p} has schema_version {version!r}; this linobs reads versions "
+                         f"{shown} — export the table again with this version")
     try:
         table = ScheduleTable.model_validate(raw)
         table.schedule_data()
@@ -250,7 +275,9 @@ def read_table(path: str | os.PathLike[str], *, check: bool = True) -> ScheduleT
         what = "unknown field" if err["type"] == "extra_forbidden" else err["msg"].lower()
         raise TableError(f"{p}: {where}: {what}") from None
     if check:
-        want = content_checksum(table)
+        # over the content as stored: a table with older key names keeps its checksum
+        want = hashlib.sha256(_canonical({k: v for k, v in raw.items() if k != "checksum"})
+                              ).hexdigest()
         if table.checksum != want:
             raise TableError(f"{p}: the checksum does not match the content (stored "
                              f"{table.checksum[:12] or 'none'}…, computed {want[:12]}…): the table "

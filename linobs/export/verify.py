@@ -41,7 +41,8 @@ class NodeCheck(BaseModel):
     point: dict[str, float]
     model_difference: float | None = Field(None, description="max relative difference of "
                                                                "A, B, C, D, dx0")
-    frozen_margin: float | None = None
+    frozen_decay_reserve: float | None = Field(
+        None, description="decay reserve of the frozen-point check with the fresh local model")
     passed: bool
     message: str = ""
 
@@ -165,12 +166,12 @@ def _recheck_nodes(table, fmu: Path, report: VerifyReport, *, sample: int, seed:
     frozen = frozen_point_check(schedule, points, lambda p: by_point[tuple(sorted(p.items()))],
                                 settings) if points else None
     if frozen is not None:
-        margins = {tuple(sorted(p.values.items())): p for p in frozen.points}
+        by_values = {tuple(sorted(p.values.items())): p for p in frozen.points}
         for check in report.nodes:
-            p = margins.get(tuple(sorted(check.point.items())))
+            p = by_values.get(tuple(sorted(check.point.items())))
             if p is None:
                 continue
-            check.frozen_margin = p.margin
+            check.frozen_decay_reserve = p.decay_reserve
             if not p.passed:
                 check.passed = False
                 check.message = (check.message + "; " if check.message else "") + \

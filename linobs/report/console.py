@@ -135,9 +135,9 @@ def print_run_summary(console: Console, summary: Any, run_dir: Any) -> None:
         console.print(f"  design: {summary.design_ok} nodes designed, {summary.design_refused} "
                       f"refused; {summary.continuity_flags} neighbouring gain jumps flagged")
     if summary.validation_frozen_passed is not None:
-        worst = summary.validation_worst_margin
+        worst = summary.validation_worst_decay_reserve
         console.print(f"  frozen-point validation: {summary.validation_frozen_passed} passed, "
-                      f"{summary.validation_frozen_failed} failed; worst margin "
+                      f"{summary.validation_frozen_failed} failed; smallest decay reserve "
                       f"{'n/a' if worst is None else f'{worst:.3g}'}")
     if summary.validation_rms:
         rms = ", ".join(f"{k} {v:.3g}" if v is not None else f"{k} diverged"

@@ -1,4 +1,4 @@
-"""Estimator figures: estimates against the truth, error envelopes, the frozen-point margin map.
+"""Estimator figures: estimates against the truth, error envelopes, the frozen-point decay reserve.
 
 Drawn like the observability figures (:mod:`linobs.report.figures`): bare
 :class:`~matplotlib.figure.Figure` objects, no pyplot, written as PNG and
@@ -13,8 +13,10 @@ style as well as colour, failed points by marker shape and hatching.
   estimator with its ±3σ envelope, on a symmetric-log axis whose linear
   part is the typical band (so the initial transient and the settled error
   are both readable).
-* :func:`frozen_margin_map` — the frozen-point margins over two scheduling
-  axes (one axis: margin against that axis): colour = margin, crosses =
+* :func:`frozen_decay_reserve_map` — the frozen-point decay reserve (how
+  much faster than required the estimation error decays) over two
+  scheduling axes (one axis: the reserve against that axis): colour =
+  decay reserve, crosses =
   points that fail, hatched = no result; other axes are reduced to their
   worst case (tensor point sets) or projected (scattered points), with the
   reduction of :func:`linobs.report.map_data.reduce_to_axes`.
@@ -52,8 +54,9 @@ from linobs.report.map_data import reduce_to_axes
 if TYPE_CHECKING:  # pragma: no cover
     from linobs.estimator.nonlinear import EstimatorRun
 
-__all__ = ["MAX_POINTS", "estimation_errors", "estimation_errors_figure", "frozen_margin_map",
-           "frozen_margin_map_figure", "state_estimates", "state_estimates_figure"]
+__all__ = ["MAX_POINTS", "estimation_errors", "estimation_errors_figure",
+           "frozen_decay_reserve_map", "frozen_decay_reserve_map_figure", "state_estimates",
+           "state_estimates_figure"]
 
 MAX_POINTS = 2000
 """Samples drawn per line at most."""
@@ -178,20 +181,21 @@ def estimation_errors(runs: Sequence[EstimatorRun], *, out_stem: Path, band: flo
 
 
 # ------------------------------------------------------------------------------ frozen points
-def frozen_margin_map_figure(points: np.ndarray, names: Sequence[str],
-                             margins: Sequence[float | None], passed: Sequence[bool], *,
-                             axes: tuple[str, str] | None = None,
-                             fixed: Mapping[str, float] | None = None, title: str = "",
-                             margin_label: str = "margin", units: Mapping[str, str] | None = None
-                             ) -> Figure:
-    """The frozen-point margins over the scheduling axes (see :func:`frozen_margin_map`)."""
+def frozen_decay_reserve_map_figure(points: np.ndarray, names: Sequence[str],
+                                    reserves: Sequence[float | None], passed: Sequence[bool], *,
+                                    axes: tuple[str, str] | None = None,
+                                    fixed: Mapping[str, float] | None = None, title: str = "",
+                                    reserve_label: str = "decay reserve",
+                                    units: Mapping[str, str] | None = None) -> Figure:
+    """The frozen-point decay reserve over the scheduling axes (see
+    :func:`frozen_decay_reserve_map`)."""
     pts = np.atleast_2d(np.asarray(points, dtype=float))
     names = list(names)
-    if pts.shape[1] != len(names) or len(margins) != len(pts) or len(passed) != len(pts):
-        raise UsageError(f"frozen margin map: {len(pts)} points with {pts.shape[1]} columns, "
-                         f"{len(names)} names, {len(margins)} margins and {len(passed)} pass "
-                         f"flags do not match")
-    m = np.array([math.nan if v is None else float(v) for v in margins])
+    if pts.shape[1] != len(names) or len(reserves) != len(pts) or len(passed) != len(pts):
+        raise UsageError(f"frozen decay reserve map: {len(pts)} points with {pts.shape[1]} "
+                         f"columns, {len(names)} names, {len(reserves)} decay reserves and "
+                         f"{len(passed)} pass flags do not match")
+    m = np.array([math.nan if v is None else float(v) for v in reserves])
     verdicts = ["failed" if not np.isfinite(v) else (_PASS if ok else _FAIL)
                 for v, ok in zip(m, passed)]
     fig = Figure(figsize=(7.5, 5.8), dpi=DPI, layout="constrained")
@@ -203,9 +207,9 @@ def frozen_margin_map_figure(points: np.ndarray, names: Sequence[str],
     norm = Normalize(vmin=lo, vmax=hi)
     handles: list[object] = []
     if len(names) == 1:
-        _draw_margin_line(ax, pts[:, 0], m, verdicts, handles)
+        _draw_reserve_line(ax, pts[:, 0], m, verdicts, handles)
         ax.set_xlabel(axis_label(names[0], units))
-        ax.set_ylabel(margin_label)
+        ax.set_ylabel(reserve_label)
         note = "all points"
     else:
         axes = axes or (names[0], names[1])
@@ -222,9 +226,9 @@ def frozen_margin_map_figure(points: np.ndarray, names: Sequence[str],
             handles.append(ax.scatter(xs[bad], ys[bad], marker="X", s=60, facecolor="white",
                                       edgecolor="black", linewidths=0.9, zorder=5,
                                       gid="failing-points",
-                                      label=f"misses the margin ({int(bad.sum())})"))
+                                      label=f"misses the required decay ({int(bad.sum())})"))
         cbar = fig.colorbar(image, ax=ax)
-        cbar.set_label(margin_label)
+        cbar.set_label(reserve_label)
         if lo < 0.0 < hi:
             cbar.ax.axhline(0.0, color="black", linestyle="--", linewidth=1.2)
         ax.set_xlabel(axis_label(data.axes[0], units))
@@ -239,30 +243,30 @@ def frozen_margin_map_figure(points: np.ndarray, names: Sequence[str],
         handles.append(Patch(facecolor=_FAILED_FACE, edgecolor=_FAILED_EDGE, hatch=_FAILED_HATCH,
                              label=f"no result ({missing})"))
     failing = int(sum(1 for v in verdicts if v == _FAIL))
-    ax.set_title(f"{note}; {failing} of {len(pts)} points miss the margin", fontsize=8.5,
-                 loc="left", color="0.25")
-    fig.suptitle(title or "Frozen-point margins of the schedule", fontweight="bold")
+    ax.set_title(f"{note}; {failing} of {len(pts)} points miss the required decay",
+                 fontsize=8.5, loc="left", color="0.25")
+    fig.suptitle(title or "Frozen-point decay reserve of the schedule", fontweight="bold")
     if handles:
         fig.legend(handles=handles, loc="outside lower center", ncols=min(3, len(handles)),
                    fontsize=8, frameon=False)
     return fig
 
 
-def frozen_margin_map(points: np.ndarray, names: Sequence[str], margins: Sequence[float | None],
-                      passed: Sequence[bool], *, out_stem: Path,
-                      axes: tuple[str, str] | None = None,
-                      fixed: Mapping[str, float] | None = None, title: str = "",
-                      margin_label: str = "margin", units: Mapping[str, str] | None = None
-                      ) -> list[Path]:
-    """A map of the frozen-point margins (worst margin per cell), PNG + SVG.
+def frozen_decay_reserve_map(points: np.ndarray, names: Sequence[str],
+                             reserves: Sequence[float | None], passed: Sequence[bool], *,
+                             out_stem: Path, axes: tuple[str, str] | None = None,
+                             fixed: Mapping[str, float] | None = None, title: str = "",
+                             reserve_label: str = "decay reserve",
+                             units: Mapping[str, str] | None = None) -> list[Path]:
+    """A map of the frozen-point decay reserve (the smallest per cell), PNG + SVG.
 
     Parameters
     ----------
     points : ndarray, shape (N, k)
         Scheduling values checked, columns named by ``names``.
     names : sequence of str
-    margins : sequence of float or None
-        Margin per point (positive: passes); None where the point has no result.
+    reserves : sequence of float or None
+        Decay reserve per point (≥ 0: passes); None where the point has no result.
     passed : sequence of bool
     axes : (str, str), optional
         The two axes shown (default the first two); ignored for one axis.
@@ -270,7 +274,7 @@ def frozen_margin_map(points: np.ndarray, names: Sequence[str], margins: Sequenc
         Values of other axes (nearest value present); others are reduced.
     out_stem : Path
         Files ``out_stem.png`` and ``out_stem.svg`` are written.
-    title, margin_label : str
+    title, reserve_label : str
     units : mapping, optional
 
     Raises
@@ -278,8 +282,9 @@ def frozen_margin_map(points: np.ndarray, names: Sequence[str], margins: Sequenc
     UsageError
         Inconsistent lengths, or axes that are not among ``names``.
     """
-    return _save(frozen_margin_map_figure(points, names, margins, passed, axes=axes, fixed=fixed,
-                                          title=title, margin_label=margin_label, units=units),
+    return _save(frozen_decay_reserve_map_figure(points, names, reserves, passed, axes=axes,
+                                                 fixed=fixed, title=title,
+                                                 reserve_label=reserve_label, units=units),
                  Path(out_stem))
 
 
@@ -363,34 +368,34 @@ def _symlog_ticks(ax, threshold: float) -> None:  # type: ignore[no-untyped-def]
     ax.yaxis.set_major_formatter(FuncFormatter(lambda v, _: f"{v:.3g}"))
 
 
-def _draw_margin_line(ax, x: np.ndarray, m: np.ndarray, verdicts: Sequence[str],  # type: ignore[no-untyped-def]
-                      handles: list[object]) -> None:
+def _draw_reserve_line(ax, x: np.ndarray, m: np.ndarray,  # type: ignore[no-untyped-def]
+                       verdicts: Sequence[str], handles: list[object]) -> None:
     order = np.argsort(x, kind="stable")
     ok = np.isfinite(m[order])
     ax.plot(x[order][ok], m[order][ok], color=matplotlib.colormaps[CMAP](0.35), linewidth=1.0,
-            marker="o", markersize=3.5, gid="margin-line")
+            marker="o", markersize=3.5, gid="reserve-line")
     ax.axhline(0.0, color="black", linestyle="--", linewidth=1.0)
     bad = np.array([v == _FAIL for v in verdicts], dtype=bool)
     if bad.any():
         handles.append(ax.scatter(x[bad], m[bad], marker="X", s=60, facecolor="white",
                                   edgecolor="black", linewidths=0.9, zorder=5,
                                   gid="failing-points",
-                                  label=f"misses the margin ({int(bad.sum())})"))
+                                  label=f"misses the required decay ({int(bad.sum())})"))
     _tidy(ax)
 
 
 def _draw_tensor(ax, data, norm: Normalize):  # type: ignore[no-untyped-def]
     xe, ye = _edges(data.x, False), _edges(data.y, False)
-    mesh = ax.pcolormesh(xe, ye, np.ma.masked_invalid(data.margin), cmap=CMAP, norm=norm,
-                         shading="flat", gid="margin-mesh")
-    for j, i in zip(*np.nonzero(~np.isfinite(data.margin))):
+    mesh = ax.pcolormesh(xe, ye, np.ma.masked_invalid(data.value), cmap=CMAP, norm=norm,
+                         shading="flat", gid="reserve-mesh")
+    for j, i in zip(*np.nonzero(~np.isfinite(data.value))):
         ax.add_patch(Rectangle((xe[i], ye[j]), xe[i + 1] - xe[i], ye[j + 1] - ye[j],
                                facecolor=_FAILED_FACE, edgecolor=_FAILED_EDGE, hatch=_FAILED_HATCH,
                                linewidth=0, gid="no-result-cell"))
-    ok = data.margin[np.isfinite(data.margin)]
-    if min(data.margin.shape) >= 2 and ok.size and ok.min() < 0.0 < ok.max():
+    ok = data.value[np.isfinite(data.value)]
+    if min(data.value.shape) >= 2 and ok.size and ok.min() < 0.0 < ok.max():
         X, Y = np.meshgrid(data.x, data.y)
-        ax.contour(X, Y, np.ma.masked_invalid(data.margin), levels=[0.0], colors="black",
+        ax.contour(X, Y, np.ma.masked_invalid(data.value), levels=[0.0], colors="black",
                    linewidths=1.2, linestyles="--")
     ax.set_xlim(xe[0], xe[-1])
     ax.set_ylim(ye[0], ye[-1])
@@ -398,10 +403,10 @@ def _draw_tensor(ax, data, norm: Normalize):  # type: ignore[no-untyped-def]
 
 
 def _draw_scattered(ax, data, norm: Normalize):  # type: ignore[no-untyped-def]
-    ok = np.isfinite(data.margin)
-    order = np.nonzero(ok)[0][np.argsort(-data.margin[ok], kind="stable")]  # worst drawn last
-    image = ax.scatter(data.x[order], data.y[order], c=data.margin[order], cmap=CMAP, norm=norm,
-                       s=46, edgecolors="0.25", linewidths=0.4, zorder=3, gid="margin-points")
+    ok = np.isfinite(data.value)
+    order = np.nonzero(ok)[0][np.argsort(-data.value[ok], kind="stable")]  # worst drawn last
+    image = ax.scatter(data.x[order], data.y[order], c=data.value[order], cmap=CMAP, norm=norm,
+                       s=46, edgecolors="0.25", linewidths=0.4, zorder=3, gid="reserve-points")
     if (~ok).any():
         ax.scatter(data.x[~ok], data.y[~ok], marker="s", s=40, facecolor=_FAILED_FACE,
                    edgecolor=_FAILED_EDGE, hatch=_FAILED_HATCH, linewidths=0.6, zorder=3,

@@ -74,14 +74,14 @@ def margin_map_figure(points: np.ndarray, names: Sequence[str], margins: np.ndar
     data = reduce_to_axes(points, names, margins, verdicts, axes=axes, fixed=fixed)
     fig = Figure(figsize=MAP_SIZE, dpi=DPI, layout="constrained")
     ax = fig.add_subplot()
-    finite = data.margin[np.isfinite(data.margin)]
+    finite = data.value[np.isfinite(data.value)]
     positive = finite[finite > 0]
     vmin = float(positive.min()) if positive.size else weak_threshold / 100
     vmax = float(positive.max()) if positive.size else 1.0
     if vmax <= vmin * 1.0001:
         vmin, vmax = vmin / 10 ** 0.5, vmax * 10 ** 0.5
     norm = LogNorm(vmin=vmin, vmax=vmax)
-    clipped = np.where(np.isfinite(data.margin), np.clip(data.margin, vmin, None), np.nan)
+    clipped = np.where(np.isfinite(data.value), np.clip(data.value, vmin, None), np.nan)
     xlog, ylog = _use_log(data.x), _use_log(data.y)
     handles: list[object] = []
     if data.kind == "tensor":

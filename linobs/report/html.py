@@ -114,8 +114,8 @@ def _overview(run: RunFolder) -> str:
                      f"{s.design_refused or 0}; {s.continuity_flags or 0} continuity flags")
     if s.validation_frozen_passed is not None:
         lines.append(f"frozen-point validation: {s.validation_frozen_passed} passed, "
-                     f"{s.validation_frozen_failed or 0} failed; worst margin "
-                     f"{num(s.validation_worst_margin)}")
+                     f"{s.validation_frozen_failed or 0} failed; smallest decay reserve "
+                     f"{num(s.validation_worst_decay_reserve)}")
     if s.export_refused:
         lines.append(f"export refused: {s.export_refused}")
     elif s.export_usable is not None:

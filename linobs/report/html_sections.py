@@ -83,30 +83,34 @@ def validation_section(run: RunFolder) -> str:
         return _not_run(run, "The schedule was not validated")
     out = ["<h3>Frozen points between the nodes</h3>"]
     if frozen is not None:
+        continuous = frozen.domain == "continuous"
+        reserve = "decay reserve [1/s]" if continuous else "decay reserve"
         verdict = ('<span class="pass">every checked point passes</span>' if frozen.all_passed
                    else f'<span class="fail">{frozen.failed + frozen.unusable + frozen.errors} '
                         f"of {frozen.count} points fail</span>")
         out.append(kv_table([("criterion", esc(frozen.criterion)),
                              ("points checked", frozen.count), ("passed", frozen.passed),
-                             ("miss the margin", frozen.failed),
+                             ("miss the required decay", frozen.failed),
                              ("unusable (a refused node is used)", frozen.unusable),
                              ("no local model", frozen.errors),
-                             ("worst margin", esc(num(frozen.worst_margin))),
+                             (f"smallest {reserve}", esc(num(frozen.worst_decay_reserve))),
                              ("result", verdict)], raw=True))
-        continuous = frozen.domain == "continuous"
         head = ["#", "scheduling values", "status", "spectral radius"] + \
-            (["decay rate [1/s]"] if continuous else []) + ["margin", "model mismatch", "message"]
+            (["decay rate [1/s]"] if continuous else []) + [reserve, "model mismatch", "message"]
         rows = [[p.index, point_text(p.values), p.status, num(p.spectral_radius, 6)]
                 + ([num(p.decay_rate)] if continuous else [])
-                + [num(p.margin), num(p.model_mismatch), p.message] for p in frozen.points[:10]]
+                + [num(p.decay_reserve), num(p.model_mismatch), p.message]
+                for p in frozen.points[:10]]
         out.append("<p>Worst points first:</p>"
                    + table(head, rows, numeric=(0, 3, 4, 5) if not continuous
                            else (0, 3, 4, 5, 6)) + _more(len(frozen.points),
                                                          "validation/frozen.json", shown=10))
-        out.append(figure(run.figure("validation_margin"), alt="frozen-point margin map",
-                          caption="Frozen-point margin over the scheduling axes (other axes "
-                                  "reduced or projected as the figure states); crosses: points "
-                                  "that miss the margin."))
+        out.append(figure(run.figure("validation_decay_reserve"),
+                          alt="frozen-point decay reserve map",
+                          caption="Frozen-point decay reserve (how much faster than required "
+                                  "the estimation error decays) over the scheduling axes (other "
+                                  "axes reduced or projected as the figure states); crosses: "
+                                  "points that miss the required decay."))
     else:
         out.append('<p class="missing">No frozen-point report in the run folder.</p>')
     out.append("<h3>Nonlinear plant</h3>")
@@ -208,7 +212,7 @@ def failures_section(run: RunFolder) -> str:
     frozen = run.frozen
     if frozen is not None and (frozen.failed or frozen.errors or frozen.unusable):
         out.append(f'<p class="fail">Frozen-point validation: {frozen.failed} points miss the '
-                   f"margin, {frozen.unusable} use a refused node, {frozen.errors} have no "
+                   f"required decay, {frozen.unusable} use a refused node, {frozen.errors} have no "
                    f"local model (details under Validation).</p>")
     out.append("<h3>Notes</h3>" + (items(s.notes) or "<p>No notes.</p>"))
     if run.problems:

@@ -1,13 +1,15 @@
-"""What a margin map shows: the envelope's margins on two chosen axes.
+"""What a map over two axes shows: a value per point on two chosen axes of the envelope.
 
-A tensor grid is reshaped to its axes; every other axis is either fixed at
-a given value (the nearest grid value) or reduced to its worst case, the
-smallest margin over that axis (and the most severe verdict).  Scattered
+The value is the observability margin (the margin map) or the frozen-point
+decay reserve; smaller is worse for both.  A tensor grid is reshaped to its
+axes; every other axis is either fixed at a given value (the nearest grid
+value) or reduced to its worst case, the smallest value over that axis (and
+the most severe verdict).  Scattered
 points are kept as points: fixed axes select the points at the nearest
 value present, the other axes are projected (no reduction is possible
 without a grid).
 
-A point counts as *failed* when its margin is NaN or its verdict is not one
+A point counts as *failed* when its value is NaN or its verdict is not one
 of the four observability verdicts (e.g. ``failed``, ``not_converged``).  A
 reduced cell takes the minimum over its points that did not fail, and
 remembers that some failed; a cell whose points all failed is NaN.
@@ -36,9 +38,9 @@ def severity(verdict: str) -> int:
 
 @dataclass(frozen=True)
 class ReducedMap:
-    """Margins on the two map axes.
+    """Values on the two map axes.
 
-    For a tensor grid ``margin``, ``verdict`` and ``failed`` are 2-D with rows
+    For a tensor grid ``value``, ``verdict`` and ``failed`` are 2-D with rows
     along the second axis (``y``) and columns along the first (``x``), the
     layout of ``pcolormesh``; for scattered points they are 1-D, one entry
     per point kept, like ``x`` and ``y``.
@@ -48,7 +50,7 @@ class ReducedMap:
     axes: tuple[str, str]
     x: np.ndarray
     y: np.ndarray
-    margin: np.ndarray
+    value: np.ndarray
     verdict: np.ndarray
     failed: np.ndarray
     fixed: dict[str, float] = field(default_factory=dict)
@@ -57,10 +59,10 @@ class ReducedMap:
     failed_status: list[str] = field(default_factory=list)
 
 
-def reduce_to_axes(points: np.ndarray, names: Sequence[str], margins: np.ndarray,
+def reduce_to_axes(points: np.ndarray, names: Sequence[str], values: np.ndarray,
                    verdicts: Sequence[str], *, axes: tuple[str, str],
                    fixed: Mapping[str, float] | None = None) -> ReducedMap:
-    """The margin field on ``axes`` (see the module notes).
+    """The value field on ``axes`` (see the module notes).
 
     Parameters
     ----------
@@ -68,8 +70,8 @@ def reduce_to_axes(points: np.ndarray, names: Sequence[str], margins: np.ndarray
         One row per operating point, columns named by ``names``.
     names : sequence of str
         The grid's axis (column) names.
-    margins : ndarray, shape (N,)
-        Margin per point (NaN where the point failed).
+    values : ndarray, shape (N,)
+        Value per point, smaller is worse (NaN where the point failed).
     verdicts : sequence of str, length N
         Verdict per point, or a status such as ``failed``.
     axes : (str, str)
@@ -85,11 +87,11 @@ def reduce_to_axes(points: np.ndarray, names: Sequence[str], margins: np.ndarray
     """
     points = np.atleast_2d(np.asarray(points, dtype=float))
     names = list(names)
-    margins = np.asarray(margins, dtype=float).reshape(-1)
+    values = np.asarray(values, dtype=float).reshape(-1)
     verdicts = [str(v) for v in verdicts]
     fixed = dict(fixed or {})
-    _check(points, names, margins, verdicts, axes, fixed)
-    failed = ~np.isfinite(margins) | np.array([severity(v) < 0 for v in verdicts], dtype=bool)
+    _check(points, names, values, verdicts, axes, fixed)
+    failed = ~np.isfinite(values) | np.array([severity(v) < 0 for v in verdicts], dtype=bool)
     ia, ib = names.index(axes[0]), names.index(axes[1])
     levels = [_levels(points[:, j]) for j in range(len(names))]
     shape = tuple(len(lv) for lv, _ in levels)
@@ -111,12 +113,12 @@ def reduce_to_axes(points: np.ndarray, names: Sequence[str], margins: np.ndarray
     if not tensor:
         sel = np.nonzero(keep)[0]
         return ReducedMap("scattered", (axes[0], axes[1]), points[sel, ia], points[sel, ib],
-                          np.where(failed[sel], np.nan, margins[sel]),
+                          np.where(failed[sel], np.nan, values[sel]),
                           np.array([verdicts[k] for k in sel], dtype=object), failed[sel],
                           fixed_used, reduced, failed_points, failed_status)
     nx, ny = shape[ia], shape[ib]
     cell = index[:, ia] + nx * index[:, ib]
-    value = np.full(nx * ny, np.inf)
+    least = np.full(nx * ny, np.inf)
     worst = np.full(nx * ny, -1)
     any_failed = np.zeros(nx * ny, dtype=bool)
     status: dict[int, str] = {}
@@ -126,20 +128,20 @@ def reduce_to_axes(points: np.ndarray, names: Sequence[str], margins: np.ndarray
             any_failed[c] = True
             status.setdefault(c, verdicts[k])
             continue
-        value[c] = min(value[c], margins[k])
+        least[c] = min(least[c], values[k])
         worst[c] = max(worst[c], severity(verdicts[k]))
     verdict = np.array([VERDICTS[w] if w >= 0 else status.get(c, "missing")
                         for c, w in enumerate(worst)], dtype=object)
-    value[np.isinf(value) & (worst < 0)] = np.nan
+    least[np.isinf(least) & (worst < 0)] = np.nan
     return ReducedMap("tensor", (axes[0], axes[1]), levels[ia][0], levels[ib][0],
-                      value.reshape(ny, nx), verdict.reshape(ny, nx), any_failed.reshape(ny, nx),
+                      least.reshape(ny, nx), verdict.reshape(ny, nx), any_failed.reshape(ny, nx),
                       fixed_used, reduced, failed_points, failed_status)
 
 
-def _check(points: np.ndarray, names: list[str], margins: np.ndarray, verdicts: list[str],
+def _check(points: np.ndarray, names: list[str], values: np.ndarray, verdicts: list[str],
            axes: tuple[str, str], fixed: dict[str, float]) -> None:
     if len(axes) != 2 or axes[0] == axes[1]:
-        raise UsageError(f"a margin map needs two different axes, got {list(axes)}; choose two "
+        raise UsageError(f"a map needs two different axes, got {list(axes)}; choose two "
                          f"of the grid axes {', '.join(names)}")
     for a in axes:
         if a not in names:
@@ -152,10 +154,10 @@ def _check(points: np.ndarray, names: list[str], margins: np.ndarray, verdicts: 
         if a in axes:
             raise UsageError(f"{a!r} is shown on the map and cannot also be fixed; fix only "
                              f"the other axes")
-    if points.shape[1] != len(names) or len(margins) != len(points) or \
+    if points.shape[1] != len(names) or len(values) != len(points) or \
             len(verdicts) != len(points):
-        raise UsageError(f"margin map: {len(points)} points with {points.shape[1]} columns, "
-                         f"{len(names)} names, {len(margins)} margins and {len(verdicts)} "
+        raise UsageError(f"map: {len(points)} points with {points.shape[1]} columns, "
+                         f"{len(names)} names, {len(values)} values and {len(verdicts)} "
                          f"verdicts do not match")
 
 

@@ -27,11 +27,14 @@ from linobs.estimator.schedule import ScheduleData
 if TYPE_CHECKING:  # pragma: no cover
     from linobs.pipeline import RunSummary
 
-__all__ = ["FIGURES", "FmuInfo", "RunFolder", "read_run_folder"]
+__all__ = ["FIGURES", "FORMER_FIGURES", "FmuInfo", "RunFolder", "read_run_folder"]
 
 FIGURES = ("observability_margin", "observability_verdicts", "schedule_gains",
-           "validation_margin", "validation_states", "validation_errors")
+           "validation_decay_reserve", "validation_states", "validation_errors")
 """Figure stems the report embeds (``RUN_DIR/figures/<stem>.png``)."""
+
+FORMER_FIGURES = {"validation_decay_reserve": ("validation_margin",)}
+"""Earlier stems of renamed figures, looked for in run folders written before the rename."""
 
 
 @dataclass
@@ -70,9 +73,12 @@ class RunFolder:
     problems: list[str] = field(default_factory=list)
 
     def figure(self, stem: str) -> Path | None:
-        """``figures/<stem>.png`` when it exists."""
-        path = self.root / "figures" / f"{stem}.png"
-        return path if path.is_file() else None
+        """``figures/<stem>.png`` (or the file of an earlier name of it) when it exists."""
+        for name in (stem, *FORMER_FIGURES.get(stem, ())):
+            path = self.root / "figures" / f"{name}.png"
+            if path.is_file():
+                return path
+        return None
 
     def locate(self, path: str | Path) -> Path:
         """A file the summary names, found in this folder when the run folder was moved.

@@ -14,7 +14,8 @@ Files (all written atomically):
     The frozen-point report; the nonlinear reports of the schedule and of the
     fixed-gain estimator and their comparison.
 ``RUN_DIR/figures/validation_*.{png,svg}``
-    True vs estimated states, estimation errors, the worst-margin map.
+    True vs estimated states, estimation errors, the map of the frozen-point decay reserve
+    (``validation_decay_reserve``; runs made before the rename have ``validation_margin``).
 """
 
 from __future__ import annotations
@@ -117,7 +118,7 @@ def run_validate_stage(runner: "_Runner", run_dir: Path, files: dict[str, str]
     summary = runner.finish(validate.FROZEN, len(points), time.perf_counter() - t0, 0,
                             {"passed": frozen.passed, "failed": frozen.failed,
                              "unusable": frozen.unusable, "errors": frozen.errors,
-                             "worst_margin": frozen.worst_margin})
+                             "worst_decay_reserve": frozen.worst_decay_reserve})
     out[validate.FROZEN] = summary
 
     # 2. the nonlinear plant along the scenario
@@ -198,7 +199,8 @@ def _nonlinear(runner: "_Runner", schedule: "GainSchedule", run_dir: Path,
 
 
 def _figures(runner: "_Runner", run_dir: Path, files: dict[str, str], frozen: Any) -> None:
-    from linobs.report.estimator_figures import estimation_errors, frozen_margin_map, state_estimates
+    from linobs.report.estimator_figures import (estimation_errors, frozen_decay_reserve_map,
+                                                 state_estimates)
 
     study = runner.study
     figures = run_dir / "figures"
@@ -211,11 +213,15 @@ def _figures(runner: "_Runner", run_dir: Path, files: dict[str, str], frozen: An
         files["estimation_errors"] = str(estimation_errors(
             runs, out_stem=figures / "validation_errors", title=f"{study.name}: estimation error",
             units=units)[0])
-    usable = [p for p in frozen.points if p.margin is not None]
+    usable = [p for p in frozen.points if p.decay_reserve is not None]
     if usable and len(study.grid.names) >= 1:
         names = list(study.grid.names)
         pts = np.array([[p.values[n] for n in names] for p in usable])
-        files["worst_margin_map"] = str(frozen_margin_map(
-            pts, names, np.array([p.margin for p in usable]), [p.passed for p in usable],
-            out_stem=figures / "validation_margin", title=f"{study.name}: frozen-point margin",
+        files["decay_reserve_map"] = str(frozen_decay_reserve_map(
+            pts, names, np.array([p.decay_reserve for p in usable]), [p.passed for p in usable],
+            out_stem=figures / "validation_decay_reserve",
+            title=f"{study.name}: frozen-point decay reserve",
+            reserve_label=("decay reserve [1/s] (decay rate − target)"
+                           if frozen.domain == "continuous"
+                           else "decay reserve (target − spectral radius)"),
             units={n: study.catalogue.get(n).unit or "" for n in names})[0])

@@ -10,7 +10,7 @@ from scipy.linalg import expm, solve_continuous_are
 from scipy.spatial import Delaunay
 
 from linobs.errors import EvaluationError
-from linobs.estimator.frozen import frozen_point_check, frozen_points
+from linobs.estimator.frozen import FrozenReport, frozen_point_check, frozen_points
 from linobs.estimator.schedule import GainSchedule, schedule_from_nodes
 from linobs.estimator.settings import ValidationSettings
 from linobs.linear.linear_model import JacobianErrors, LinearModel, ModelIdentity
@@ -20,6 +20,7 @@ from linobs.operating.grid import Axis, Grid
 from linobs.operating.trim import find_operating_point
 from linobs.operating.trim_spec import TrimSpec
 from tests.estimator.test_schedule import kalman_filter_gain, make_node, zoh
+from tests.support.former_names import former_frozen
 
 TS = 0.2
 B = np.array([[0.0], [1.0]])
@@ -136,9 +137,9 @@ def test_interpolated_kalman_gains_pass_with_the_right_radius(form: str) -> None
         L = interpolated_gain(values, gains, s)
         M = Phi - L @ C if form == "predictor" else (np.eye(2) - L @ C) @ Phi
         assert fp.spectral_radius == pytest.approx(radius(M), rel=1e-10)
-        assert fp.margin == pytest.approx(0.999 - radius(M), rel=1e-9)
-    margins = [fp.margin for fp in report.points]
-    assert margins == sorted(margins) and report.worst_margin == margins[0]
+        assert fp.decay_reserve == pytest.approx(0.999 - radius(M), rel=1e-9)
+    reserves = [fp.decay_reserve for fp in report.points]
+    assert reserves == sorted(reserves) and report.worst_decay_reserve == reserves[0]
 
 
 def test_a_bad_node_fails_where_its_gain_is_used() -> None:
@@ -157,8 +158,13 @@ def test_a_bad_node_fails_where_its_gain_is_used() -> None:
     for s in (2.5, 2.9, 3.0, 3.5):                                # cells touching it
         assert not by_s[s].passed and by_s[s].status == "fail"
     assert report.failed == 4 and report.passed == 2 and not report.all_passed
-    assert report.points[0].margin == min(fp.margin for fp in report.points)
+    assert report.points[0].decay_reserve == min(fp.decay_reserve for fp in report.points)
     assert report.points[-1].passed
+    # a report stored before the decay reserve had its name reads with the same values
+    stored = former_frozen(report.model_dump(mode="json"))
+    assert "worst_margin" in stored and "margin" in stored["points"][0]
+    assert "decay_reserve" not in stored["points"][0]
+    assert FrozenReport.model_validate(stored) == report
 
 
 def test_continuous_design_checks_the_decay_rate() -> None:
@@ -184,12 +190,12 @@ def test_continuous_design_checks_the_decay_rate() -> None:
         L = interpolated_gain(values, [n.L for n in nodes], s)
         rho = radius((np.eye(2) - L @ C) @ expm(plant_A(s) * TS))
         assert fp.decay_rate == pytest.approx(decay, rel=1e-10)
-        assert fp.margin == pytest.approx(min(decay, -np.log(rho) / TS) - 0.05, rel=1e-9)
+        assert fp.decay_reserve == pytest.approx(min(decay, -np.log(rho) / TS) - 0.05, rel=1e-9)
         assert fp.passed
     # a demanding rate fails with the same numbers
     strict = frozen_point_check(schedule, [{"s": 1.0}], analytic_callback,
                                 ValidationSettings(decay_rate_min=50.0))
-    assert strict.failed == 1 and strict.points[0].margin < 0
+    assert strict.failed == 1 and strict.points[0].decay_reserve < 0
 
 
 def test_callback_failures_and_refused_nodes_are_recorded() -> None:
@@ -262,7 +268,7 @@ def test_four_tank_kalman_schedule_passes(bundled_fmus: dict[str, Path]) -> None
         centre = {"v1": 2.8, "v2": 3.2}
         lm_centre = local(centre)
     assert report.count == 4 + 6 and report.all_passed, [fp.message for fp in report.points]
-    assert report.worst_margin is not None and report.worst_margin > 0
+    assert report.worst_decay_reserve is not None and report.worst_decay_reserve > 0
     # independent at one cell centre: bilinear weights are all 1/4 there (analytic)
     L = 0.25 * sum(nodes[grid.flat_index(ix)].L for ix in ((0, 1), (0, 2), (1, 1), (1, 2)))
     rho = radius((np.eye(4) - L @ lm_centre.C) @ expm(lm_centre.A * Ts))

@@ -20,6 +20,7 @@ from linobs.export.table import (
     TableError,
     content_checksum,
     read_table,
+    seal_table,
     table_json,
     table_schema,
 )
@@ -27,6 +28,7 @@ from linobs.export.verify import verify_table
 from linobs.model.build import build_fmu
 from linobs.pipeline import CAUTION, run_study
 from tests.export.stage_study import write_study
+from tests.support.former_names import write_former_table
 
 FMUS = Path(__file__).resolve().parents[2] / "fmus"
 
@@ -128,6 +130,37 @@ def test_verify_passes_fresh_and_fails_on_one_digit(exported: tuple[Path, dict],
     assert not report.ok and "checksum does not match" in report.reasons[0]
     result = CliRunner().invoke(app, ["verify", str(bad), str(fmu)])
     assert result.exit_code == 1 and "checksum" in result.output
+
+
+def test_a_table_written_before_the_decay_reserve_rename_reads_and_verifies(
+        exported: tuple[Path, dict], tmp_path: Path) -> None:
+    run, summary = exported
+    source = run / "export" / "schedule_table.json"
+    fresh = read_table(source)
+    path = tmp_path / "schedule_table.json"
+    old = write_former_table(source, path)           # schema version 1, its own checksum
+    assert old["schema_version"] == 1 and "worst_margin" in old["validation"]
+    assert "node_margin" in old["validation"]["nodes"][0]
+    assert "decay_reserve" not in path.read_text()
+    table = read_table(path)
+    assert table.schema_version == 1 and table.checksum == old["checksum"] != fresh.checksum
+    assert table.validation.worst_decay_reserve == fresh.validation.worst_decay_reserve
+    assert table.validation.worst_decay_reserve is not None
+    for a, b in zip(table.validation.nodes, fresh.validation.nodes, strict=True):
+        assert a.node_decay_reserve == b.node_decay_reserve and a.node_decay_reserve is not None
+        assert a.worst_frozen_decay_reserve == b.worst_frozen_decay_reserve
+    result = CliRunner().invoke(app, ["verify", str(path), summary["fmu"]])
+    assert result.exit_code == 0, result.output
+    assert "verified" in result.output
+    # the stored content is still what the checksum guards: one changed value fails
+    edited = tmp_path / "edited.json"
+    edited.write_text(json.dumps(dict(old, sample_time=2 * old["sample_time"]), indent=1))
+    with pytest.raises(TableError, match="checksum does not match"):
+        read_table(edited)
+    # sealed again, a table read from version 1 is written with this version's names
+    again = seal_table(table)
+    assert again.schema_version == SCHEMA_VERSION and content_checksum(again) == again.checksum
+    assert '"node_decay_reserve"' in table_json(again) and '"node_margin"' not in table_json(again)
 
 
 def test_verify_fails_against_another_fmu(exported: tuple[Path, dict],

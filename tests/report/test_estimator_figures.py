@@ -13,7 +13,7 @@ from linobs.errors import UsageError
 from linobs.estimator.nonlinear import EstimatorRun
 from linobs.report.estimator_figures import (
     estimation_errors,
-    frozen_margin_map,
+    frozen_decay_reserve_map,
     state_estimates,
 )
 
@@ -79,27 +79,32 @@ def test_estimation_errors_with_and_without_a_covariance(tmp_path: Path, runs) -
         estimation_errors([], out_stem=tmp_path / "none")
 
 
-def test_frozen_margin_map_on_a_tensor_set_scattered_points_and_one_axis(tmp_path: Path) -> None:
+def test_frozen_decay_reserve_map_on_a_tensor_set_scattered_points_and_one_axis(
+        tmp_path: Path) -> None:
     soc, cur = np.linspace(0.1, 0.9, 5), np.array([-30.0, 0.0, 30.0])
     pts = np.array([[s, i] for s in soc for i in cur])
-    margins: list[float | None] = [0.2 - 0.5 * abs(s - 0.5) - 0.002 * abs(i) for s, i in pts]
-    margins[7] = None                                  # a point without a result
-    passed = [m is not None and m >= 0 for m in margins]
-    paths = frozen_margin_map(pts, ["soc", "i_cell"], margins, passed, out_stem=tmp_path / "t",
-                              margin_label="spectral-radius margin", units={"i_cell": "A"})
-    check_files(paths, ["soc", "i_cell [A]", "spectral-radius margin", "misses the margin",
-                        "no result (1)"])
+    reserves: list[float | None] = [0.2 - 0.5 * abs(s - 0.5) - 0.002 * abs(i) for s, i in pts]
+    reserves[7] = None                                 # a point without a result
+    passed = [m is not None and m >= 0 for m in reserves]
+    paths = frozen_decay_reserve_map(pts, ["soc", "i_cell"], reserves, passed,
+                                     out_stem=tmp_path / "t",
+                                     reserve_label="decay reserve (target − spectral radius)",
+                                     units={"i_cell": "A"})
+    check_files(paths, ["soc", "i_cell [A]", "decay reserve (target − spectral radius)",
+                        "misses the required decay", "no result (1)"])
     rng = np.random.default_rng(3)
     scattered = rng.uniform([0.1, -30.0, 10.0], [0.9, 30.0, 40.0], size=(30, 3))
     m2 = list(0.1 - 0.4 * np.abs(scattered[:, 0] - 0.5))
-    paths = frozen_margin_map(scattered, ["soc", "i_cell", "t_amb"], m2, [m >= 0 for m in m2],
-                              axes=("soc", "t_amb"), out_stem=tmp_path / "s")
-    check_files(paths, ["t_amb", "projected i_cell"])
-    line = frozen_margin_map(soc[:, None], ["soc"], [0.1, 0.05, -0.01, 0.04, 0.09],
-                             [True, True, False, True, True], out_stem=tmp_path / "one")
-    check_files(line, ["soc", "misses the margin (1)"])
+    paths = frozen_decay_reserve_map(scattered, ["soc", "i_cell", "t_amb"], m2,
+                                     [m >= 0 for m in m2], axes=("soc", "t_amb"),
+                                     out_stem=tmp_path / "s")
+    check_files(paths, ["t_amb", "projected i_cell", "Frozen-point decay reserve"])
+    line = frozen_decay_reserve_map(soc[:, None], ["soc"], [0.1, 0.05, -0.01, 0.04, 0.09],
+                                    [True, True, False, True, True], out_stem=tmp_path / "one")
+    check_files(line, ["soc", "misses the required decay (1)"])
     with pytest.raises(UsageError, match="do not match"):
-        frozen_margin_map(pts, ["soc", "i_cell"], margins[:-1], passed, out_stem=tmp_path / "x")
+        frozen_decay_reserve_map(pts, ["soc", "i_cell"], reserves[:-1], passed,
+                                 out_stem=tmp_path / "x")
     with pytest.raises(UsageError, match="not a grid axis"):
-        frozen_margin_map(pts, ["soc", "i_cell"], margins, passed, axes=("soc", "q"),
-                          out_stem=tmp_path / "y")
+        frozen_decay_reserve_map(pts, ["soc", "i_cell"], reserves, passed, axes=("soc", "q"),
+                                 out_stem=tmp_path / "y")

@@ -61,7 +61,7 @@ def test_worst_case_reduction_is_the_minimum_over_the_other_axis():
     data = reduce_to_axes(pts, ["a", "b", "c"], margins, list(verdicts), axes=("a", "b"))
     A, B = np.meshgrid(A_VALUES, B_VALUES)
     # analytic: min over c of (1 + (c − 2)²) is 1, at c = 2
-    np.testing.assert_allclose(data.margin, 10.0 ** (-A) * (1.0 + B) * 1e-2, rtol=1e-14)
+    np.testing.assert_allclose(data.value, 10.0 ** (-A) * (1.0 + B) * 1e-2, rtol=1e-14)
     assert data.kind == "tensor" and data.reduced == ["c"] and data.fixed == {}
     np.testing.assert_array_equal(data.x, A_VALUES)
     np.testing.assert_array_equal(data.y, B_VALUES)
@@ -74,7 +74,7 @@ def test_fixed_axis_uses_the_nearest_grid_value():
     assert data.fixed == {"c": 3.5}
     B, A = np.meshgrid(B_VALUES, A_VALUES)
     # analytic: the field at c = 3.5, rows along a (the second map axis)
-    np.testing.assert_allclose(data.margin, field(A, B, 3.5), rtol=1e-14)
+    np.testing.assert_allclose(data.value, field(A, B, 3.5), rtol=1e-14)
 
 
 def test_the_map_draws_the_reduced_field():
@@ -110,9 +110,9 @@ def test_failed_points_are_grey_and_listed():
     verdicts[all_failed] = "failed"
     verdicts[some_failed] = "not_converged"
     data = reduce_to_axes(pts, ["a", "b", "c"], margins, list(verdicts), axes=("a", "b"))
-    assert np.isnan(data.margin[2, 3]) and data.verdict[2, 3] == "failed"
+    assert np.isnan(data.value[2, 3]) and data.verdict[2, 3] == "failed"
     # the cell minimum skips the failed point: next smallest at c = 1 or 3.5 is (1 + 1²) (analytic)
-    assert data.margin[0, 0] == pytest.approx(field(0.0, 0.0, 1.0))
+    assert data.value[0, 0] == pytest.approx(field(0.0, 0.0, 1.0))
     assert data.failed[0, 0] and data.failed[2, 3] and not data.failed[1, 1]
     fig = margin_map_figure(pts, ["a", "b", "c"], margins, list(verdicts), axes=("a", "b"),
                             weak_threshold=1e-3)
@@ -158,7 +158,7 @@ def test_scattered_points():
     verdicts = np.where(margins < 1e-3, "weak", "observable").astype(object)
     margins[5], verdicts[5] = np.nan, "failed"
     data = reduce_to_axes(pts, ["a", "b"], margins, list(verdicts), axes=("a", "b"))
-    assert data.kind == "scattered" and len(data.x) == 40 and np.isnan(data.margin[5])
+    assert data.kind == "scattered" and len(data.x) == 40 and np.isnan(data.value[5])
     fig = margin_map_figure(pts, ["a", "b"], margins, list(verdicts), axes=("a", "b"),
                             weak_threshold=1e-3)
     (points,) = artists(fig, "margin-points")

@@ -22,6 +22,7 @@ from linobs.pipeline import RunSummary
 from linobs.report.html import write_report
 from linobs.report.html_parts import SCRIPT
 from tests.report.browser import open_page
+from tests.support.former_names import former_run_folder
 
 SECTIONS = ("overview", "study", "fmu", "observability", "schedule", "validation", "export",
             "failures")
@@ -230,6 +231,44 @@ def test_report_lists_refused_nodes_and_continuity_flags(stage_run: Path, tmp_pa
     assert "refused neighbour" in sched and "v1: 2 → 3" in sched and "verdict change" in sched
     svg = (copy / "figures" / "schedule_gains.svg").read_text(encoding="utf-8")
     assert 'id="refused-cell' in svg                  # the redrawn figure marks the node
+
+
+@pytest.mark.slow
+def test_a_run_folder_written_before_the_decay_reserve_rename_reads_and_resumes(
+        stage_run: Path, tmp_path: Path) -> None:
+    from linobs.export.table import SCHEMA_VERSION, read_table
+    from linobs.pipeline import run_study
+
+    copy = tmp_path / "run"
+    shutil.copytree(stage_run, copy, ignore=shutil.ignore_patterns("report.html"))
+    fresh = summary_of(stage_run)
+    former_run_folder(copy)          # earlier keys, figure name and table schema version
+    on_disk = json.loads((copy / "summary.json").read_text())
+    assert "validation_worst_margin" in on_disk and "validation_worst_decay_reserve" not in on_disk
+    assert "worst_margin" in json.loads((copy / "validation" / "frozen.json").read_text())
+    assert (copy / "figures" / "validation_margin.png").is_file()
+    assert not (copy / "figures" / "validation_decay_reserve.png").exists()
+    # the report reads the earlier names, and the figure under its earlier file name
+    assert summary_of(copy).validation_worst_decay_reserve == \
+        fresh.validation_worst_decay_reserve is not None
+    page = Page(write_report(copy).read_text(encoding="utf-8"))
+    validation = page.sections["validation"]
+    assert "smallest decay reserve" in validation and "miss the required decay" in validation
+    assert "No frozen-point report" not in validation
+    assert "frozen-point decay reserve map" in [img["alt"] for img in page.all("img")]
+    assert "could not read" not in page.sections["failures"]
+    # resumed, the run carries on from those files and writes the new names
+    summary = run_study(stage_run.parent / "study.toml", copy, workers=1, resume=True)
+    assert summary.stages["sweep"].computed_now == 0
+    assert summary.validation_worst_decay_reserve == fresh.validation_worst_decay_reserve
+    assert summary.export_usable == fresh.export_usable
+    on_disk = json.loads((copy / "summary.json").read_text())
+    assert "validation_worst_decay_reserve" in on_disk and "validation_worst_margin" not in on_disk
+    assert (copy / "figures" / "validation_decay_reserve.png").is_file()
+    table = read_table(copy / "export" / "schedule_table.json")
+    before = read_table(stage_run / "export" / "schedule_table.json")
+    assert table.schema_version == SCHEMA_VERSION
+    assert table.validation == before.validation and table.schedule == before.schedule
 
 
 def test_write_report_needs_a_finished_run(tmp_path: Path) -> None:
