@@ -173,7 +173,7 @@ def _describe(verdict: str, comp: list[int], ranges: Mapping[str, tuple[float, f
         place += f", at every {' and '.join(everywhere)}"
     text = (f"{who} {'is' if len(pv.states) < 2 else 'are'} {_WORDS.get(verdict, verdict)} for "
             f"{place} ({len(comp)} grid point{'s' if len(comp) != 1 else ''}); weakest mode "
-            f"{pv.mode}, margin down to {pv.margin:.2g}")
+            f"{pv.mode}, margin (distance to unobservability) down to {pv.margin:.2g}")
     if brange:
         parts = []
         for n, clusters in brange.items():

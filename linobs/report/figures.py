@@ -98,10 +98,10 @@ def margin_map_figure(points: np.ndarray, names: Sequence[str], margins: np.ndar
     ax.set_xlabel(axis_label(data.axes[0], units))
     ax.set_ylabel(axis_label(data.axes[1], units))
     cbar = fig.colorbar(image, ax=ax, extend="min" if np.any(finite < vmin) else "neither")
-    cbar.set_label("observability margin (relative singular value)")
+    cbar.set_label("distance to unobservability (relative singular value)")
     if vmin <= weak_threshold <= vmax:
         cbar.ax.axhline(weak_threshold, color="black", linestyle="--", linewidth=1.2)
-    fig.suptitle(title or "Observability margin", fontweight="bold")
+    fig.suptitle(title or "Margin map: distance to unobservability", fontweight="bold")
     note = _reduction_note(data, units)
     if finite.size and not finite.min() < weak_threshold < finite.max():
         side = "below" if finite.max() <= weak_threshold else "above"
@@ -120,7 +120,7 @@ def margin_map(points: np.ndarray, names: Sequence[str], margins: np.ndarray,
                boundary: Sequence[Mapping[str, float]] = (), weak_threshold: float,
                out_stem: Path, title: str = "", units: Mapping[str, str] | None = None
                ) -> list[Path]:
-    """A heat map of the observability margin over two axes of the envelope.
+    """A heat map of the observability margin (distance to unobservability) over two axes.
 
     Parameters
     ----------

@@ -222,10 +222,12 @@ def _observability(run: RunFolder) -> str:
                      ("disagreements with the linear verdict", s.empirical_disagreements or 0)]),
            "<h3>Where observability is lost or weak</h3>",
            items(run.regions) or '<p class="missing">no regions recorded</p>',
-           figure(run.figure("observability_margin"), alt="observability margin map",
-                  caption="Observability margin (relative singular value, log scale) over two "
-                          "grid axes; dashed: the weak threshold; diamonds: refined boundary "
-                          "points; hatched: points without a result.",
+           figure(run.figure("observability_margin"),
+                  alt="margin map: distance to unobservability",
+                  caption="Margin map: the distance to unobservability of the weakest mode (PBH "
+                          "test, relative singular value, log scale) over two grid axes; "
+                          "dashed: the weak threshold; diamonds: refined boundary points; "
+                          "hatched: points without a result.",
                   missing="No margin map (it needs at least two grid axes, or figures were off)."),
            figure(run.figure("observability_verdicts"), alt="verdict counts",
                   caption="Operating points per observability verdict and per failure status.")]

@@ -1,10 +1,10 @@
 """What a map over two axes shows: a value per point on two chosen axes of the envelope.
 
-The value is the observability margin (the margin map) or the frozen-point
-decay reserve; smaller is worse for both.  A tensor grid is reshaped to its
-axes; every other axis is either fixed at a given value (the nearest grid
-value) or reduced to its worst case, the smallest value over that axis (and
-the most severe verdict).  Scattered
+The value is the observability margin, the distance to unobservability (the
+margin map), or the frozen-point decay reserve; smaller is worse for both.  A
+tensor grid is reshaped to its axes; every other axis is either fixed at a
+given value (the nearest grid value) or reduced to its worst case, the
+smallest value over that axis (and the most severe verdict).  Scattered
 points are kept as points: fixed axes select the points at the nearest
 value present, the other axes are projected (no reduction is possible
 without a grid).

@@ -127,7 +127,8 @@ def _write_figures(runner: "_Runner", run_dir: Path, analysed: list[Any], bounda
                            fixed=settings.map_fixed, boundary=[b["point"] for b in boundary],
                            weak_threshold=settings.weak_threshold,
                            out_stem=figures / "observability_margin",
-                           title=f"{study.name}: observability margin", units=units)
+                           title=f"{study.name}: distance to unobservability",
+                           units=units)
         files["margin_map"] = str(paths[0])
     extra = {k: v for k, v in runner.store.counts("sweep").items() if k != "ok" and v}
     paths = verdict_counts({**counts, **extra}, out_stem=figures / "observability_verdicts",

@@ -184,7 +184,8 @@ def test_map_files(tmp_path):
     image = matplotlib.image.imread(paths[0])
     assert image.shape[:2] == (round(MAP_SIZE[1] * DPI), round(MAP_SIZE[0] * DPI))
     text = svg_text(paths[1])
-    for label in ("a [A]", "b [degC]", "Plant: margin", "worst case (smallest margin) over c"):
+    for label in ("a [A]", "b [degC]", "Plant: margin", "worst case (smallest margin) over c",
+                  "distance to unobservability (relative singular value)"):
         assert label in text
     assert not list(tmp_path.joinpath("sub").glob("*.tmp"))  # atomic: no temporary left over
 

@@ -134,6 +134,9 @@ def test_report_names_the_fmu_and_the_findings(stage_run: Path, report) -> None:
     assert "v1 (input): 3 values" in page.sections["study"]
     for line in summary.regions or []:
         assert line in page.sections["observability"]
+    assert "distance to unobservability" in page.sections["observability"]
+    assert "Gain maps" in page.sections["schedule"]
+    assert "decay reserve" in page.sections["validation"]
     for line in summary.comparison or []:
         assert line in page.sections["validation"]
     for state in (summary.validation_rms or {}):
