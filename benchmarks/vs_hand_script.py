@@ -8,8 +8,8 @@ design a steady-state Kalman estimator.
 The hand script (common practice, one point at a time, one FMU instance):
 fmpy's high-level ``instantiate_fmu`` and its per-call getters/setters,
 ``scipy.optimize.root`` (hybr) from the model's start values, fixed-step
-forward differences (step 1e-6), the observability-matrix rank of
-python-control's ``obsv`` and its continuous Kalman design.
+forward differences (step 1e-6), an observability-matrix rank test and a
+continuous steady-state Kalman gain, both from python-control.
 
 linobs: ``run_study`` through the ``design`` stage on the local pool
 (process start included), doing more — trim with continuation, sparse
@@ -87,6 +87,7 @@ def hand_script(fmu: Path, voltages: list[tuple[float, float]]) -> dict[str, flo
             up = list(u0)
             up[j] += step
             B[:, j] = (f(h0, tuple(up)) - f0) / step
+        # observability-matrix rank test, then the continuous steady-state Kalman gain
         ranks.append(np.linalg.matrix_rank(control.obsv(A, C)))
         control.lqe(A, np.eye(4), C, 1e-4 * np.eye(4), 1e-4 * np.eye(2))
     inst.terminate()
@@ -137,8 +138,8 @@ def main() -> None:
     t_linobs = time.perf_counter() - t0
     print(f"{len(voltages)} points of four_tank; hand script: {hand['observable']} points "
           f"observable by rank")
-    print(f"  hand script (fmpy high-level calls, scipy root, forward differences, control "
-          f"obsv rank + lqe): {t_hand:7.2f} s")
+    print(f"  hand script (fmpy high-level calls, scipy root, forward differences, "
+          f"observability-matrix rank test + continuous Kalman gain): {t_hand:7.2f} s")
     print(f"  linobs run --until design ({summary.executor}, "
           f"{'lean' if args.lean else 'default'} observability stage): {t_linobs:7.2f} s; "
           f"{summary.ok} trimmed, {summary.observable} observable, "
