@@ -1,7 +1,8 @@
 """The ``linobs`` command line.
 
 Errors a user can cause print one line and exit 1 (model or data) or 2
-(usage); ``--debug`` shows the traceback instead.
+(usage); ``--debug`` shows the traceback instead.  Every command that writes
+a file or a folder takes it as ``-o`` / ``--out``.
 """
 
 from __future__ import annotations
@@ -103,17 +104,17 @@ def build_fmu_command(
     source: Annotated[Path, typer.Argument(
         metavar="SRC_DIR", help="Folder with modelDescription.xml and sources/*.c, "
                                 "or a source FMU (.fmu with sources/).")],
-    output: Annotated[Path, typer.Option("-o", "--output", metavar="OUT.fmu",
-                                         help="The FMU to write.")],
+    out: Annotated[Path, typer.Option("-o", "--out", metavar="OUT.fmu",
+                                      help="The FMU to write.")],
 ) -> None:
     """Compile a C-source FMU with the system C compiler into a standard .fmu."""
     from linobs.model.build import build_fmu, build_from_source_fmu
 
     with _errors():
         if source.is_file() and source.suffix.lower() == ".fmu":
-            path = build_from_source_fmu(source, output)
+            path = build_from_source_fmu(source, out)
         elif source.is_dir():
-            path = build_fmu(source, output)
+            path = build_fmu(source, out)
         else:
             raise UsageError(f"{source}: expected a folder with modelDescription.xml and sources/, "
                              f"or a source .fmu")
@@ -131,7 +132,8 @@ def study_schema_command() -> None:
 @app.command()
 def run(
     study_path: Annotated[Path, typer.Argument(metavar="STUDY.toml", help="The study file.")],
-    out: Annotated[Path, typer.Option("--out", metavar="RUN_DIR", help="Run folder (created).")],
+    out: Annotated[Path, typer.Option("-o", "--out", metavar="RUN_DIR",
+                                      help="Run folder (created).")],
     workers: Annotated[Optional[int], typer.Option(
         "--workers", min=1, help="Local worker processes (default: one per core).")] = None,
     dask: Annotated[Optional[str], typer.Option(
@@ -202,8 +204,8 @@ def verify(
 @app.command("export-fmu")
 def export_fmu_command(
     table: Annotated[Path, typer.Argument(metavar="TABLE.json", help="The exported schedule table.")],
-    output: Annotated[Path, typer.Option("-o", "--output", metavar="OUT.fmu",
-                                         help="The estimator FMU to write.")],
+    out: Annotated[Path, typer.Option("-o", "--out", metavar="OUT.fmu",
+                                      help="The estimator FMU to write.")],
 ) -> None:
     """Build the scheduled estimator of a schedule table as an FMI 2.0 co-simulation FMU."""
     from linobs.export.estimator_fmu import build_estimator_fmu
@@ -215,7 +217,7 @@ def export_fmu_command(
         name = "".join(c if c.isalnum() else "_" for c in t.study) + "_estimator"
         note = (f"source FMU {t.fmu.model_name} (GUID {t.fmu.guid}, SHA-256 {t.fmu.sha256}); "
                 f"schedule table checksum {t.checksum}")
-        path = build_estimator_fmu(GainSchedule(t.schedule_data()), output, model_name=name,
+        path = build_estimator_fmu(GainSchedule(t.schedule_data()), out, model_name=name,
                                    caution=t.caution, header_note=note)
     console.print(f"wrote {path}")
 
@@ -223,7 +225,8 @@ def export_fmu_command(
 @app.command()
 def demo(
     out: Annotated[Optional[Path], typer.Option(
-        "--out", help="Folder for the demo's run (default: a folder in the cache).")] = None,
+        "-o", "--out", metavar="DIR",
+        help="Folder for the demo's run (default: a folder in the cache).")] = None,
     workers: Annotated[Optional[int], typer.Option(
         "--workers", min=1, help="Local worker processes (default: one per core).")] = None,
 ) -> None:

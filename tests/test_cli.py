@@ -85,9 +85,26 @@ def test_build_fmu_command(tmp_path: Path) -> None:
             if not item.filename.startswith("binaries/"):
                 zout.writestr(item, zin.read(item.filename))
     rebuilt = tmp_path / "rebuilt.fmu"
-    result = runner.invoke(app, ["build-fmu", str(other), "-o", str(rebuilt)])
+    result = runner.invoke(app, ["build-fmu", str(other), "--out", str(rebuilt)])
     assert result.exit_code == 0, result.output
     assert runner.invoke(app, ["describe", str(rebuilt)]).exit_code == 0
+
+
+def test_every_command_that_writes_takes_dash_o_or_dash_dash_out() -> None:
+    import typer
+
+    commands = typer.main.get_command(app).commands  # type: ignore[attr-defined]
+    writers = {name: [p for p in cmd.params if "--out" in p.opts]
+               for name, cmd in commands.items()}
+    assert {n for n, found in writers.items() if found} == {"build-fmu", "run", "export-fmu",
+                                                             "demo"}
+    for name, found in writers.items():
+        for param in found:
+            assert sorted(param.opts) == ["--out", "-o"], name
+        for param in commands[name].params:
+            assert "--output" not in param.opts, name
+    result = runner.invoke(app, ["build-fmu", "x", "--output", "y.fmu"])
+    assert result.exit_code == 2 and "No such option" in result.output
 
 
 def test_console_script_and_debug_flag(tmp_path: Path) -> None:

@@ -38,7 +38,7 @@ def test_demo_runs_the_cell_end_to_end(tmp_path: Path) -> None:
                  "export/lfp_cell_envelope_estimator.fmu"):
         assert (tmp_path / "demo" / name).stat().st_size > 0, name
     # a second run into the same folder resumes: nothing is computed again
-    again = CliRunner().invoke(app, ["demo", "--out", str(tmp_path / "demo")])
+    again = CliRunner().invoke(app, ["demo", "-o", str(tmp_path / "demo")])
     assert again.exit_code == 0, again.output
     stages = json.loads((tmp_path / "demo" / "summary.json").read_text())["stages"]
     assert stages["sweep"]["computed_now"] == 0 and stages["design"]["computed_now"] == 0

@@ -183,7 +183,7 @@ def test_faulty_points_are_classified_and_isolated(tmp_path: Path, faulty_fmu: P
 
 def test_cli_run_prints_a_summary(tmp_path: Path) -> None:
     study_path = cell_study(tmp_path / "study", soc=2, current=(0.0, 20.0), temps=(25.0,))
-    result = runner.invoke(app, ["run", str(study_path), "--out", str(tmp_path / "run"),
+    result = runner.invoke(app, ["run", str(study_path), "-o", str(tmp_path / "run"),
                                  "--workers", "1"])
     assert result.exit_code == 0, result.output
     assert "run summary" in result.output and "summary.json" in result.output

@@ -241,6 +241,6 @@ def test_export_stage_writes_c_code_and_a_valid_estimator_fmu(exported: tuple[Pa
     # the CLI builds the same estimator from the table alone (same content -> same GUID)
     again = tmp_path / "again.fmu"
     result = CliRunner().invoke(app, ["export-fmu", str(folder / "schedule_table.json"),
-                                      "-o", str(again)])
+                                      "--out", str(again)])
     assert result.exit_code == 0, result.output
     assert read_model_description(str(again)).guid == md.guid
