@@ -49,7 +49,7 @@ from matplotlib.patches import Patch, Rectangle
 
 from linobs.errors import UsageError
 from linobs.report.figures import DPI, _edges, _save, axis_label
-from linobs.report.map_data import reduce_to_axes
+from linobs.report.map_data import rasterize, reduce_to_axes
 
 if TYPE_CHECKING:  # pragma: no cover
     from linobs.estimator.nonlinear import EstimatorRun
@@ -386,7 +386,7 @@ def _draw_reserve_line(ax, x: np.ndarray, m: np.ndarray,  # type: ignore[no-unty
 
 def _draw_tensor(ax, data, norm: Normalize):  # type: ignore[no-untyped-def]
     xe, ye = _edges(data.x, False), _edges(data.y, False)
-    mesh = ax.pcolormesh(xe, ye, np.ma.masked_invalid(data.value), cmap=CMAP, norm=norm,
+    mesh = ax.pcolormesh(xe, ye, np.ma.masked_invalid(data.value), rasterized=rasterize(xe, ye), cmap=CMAP, norm=norm,
                          shading="flat", gid="reserve-mesh")
     for j, i in zip(*np.nonzero(~np.isfinite(data.value))):
         ax.add_patch(Rectangle((xe[i], ye[j]), xe[i + 1] - xe[i], ye[j + 1] - ye[j],

@@ -37,7 +37,7 @@ from matplotlib.ticker import MaxNLocator
 from linobs.atomic import atomic_write_bytes
 from linobs.errors import UsageError
 from linobs.observability.report import VERDICTS, verdict_key
-from linobs.report.map_data import ReducedMap, reduce_to_axes
+from linobs.report.map_data import rasterize, ReducedMap, reduce_to_axes
 
 __all__ = ["COUNTS_SIZE", "DPI", "MAP_SIZE", "axis_label", "margin_map", "margin_map_figure",
            "reduce_to_axes", "verdict_counts", "verdict_counts_figure"]
@@ -226,7 +226,7 @@ def verdict_counts(counts: Mapping[str, int], *, out_stem: Path, title: str = ""
 def _draw_tensor(ax, data: ReducedMap, clipped: np.ndarray, norm: LogNorm, xlog: bool,
                  ylog: bool, weak: float, handles: list[object]):  # type: ignore[no-untyped-def]
     xe, ye = _edges(data.x, xlog), _edges(data.y, ylog)
-    mesh = ax.pcolormesh(xe, ye, np.ma.masked_invalid(clipped), cmap=CMAP, norm=norm,
+    mesh = ax.pcolormesh(xe, ye, np.ma.masked_invalid(clipped), rasterized=rasterize(xe, ye), cmap=CMAP, norm=norm,
                          shading="flat", gid="margin-mesh")
     for j, i in zip(*np.nonzero(~np.isfinite(clipped))):
         ax.add_patch(Rectangle((xe[i], ye[j]), xe[i + 1] - xe[i], ye[j + 1] - ye[j],

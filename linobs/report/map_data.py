@@ -174,3 +174,19 @@ def _levels(column: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
     index = np.empty_like(group)
     index[order] = group
     return sorted_values[new], index
+
+
+RASTER_CELLS = 400
+"""Meshes with more cells than this are drawn as one embedded image inside the SVG."""
+
+
+def rasterize(xe: np.ndarray, ye: np.ndarray) -> bool:
+    """Whether a mesh on the cell edges ``xe``, ``ye`` goes into the SVG as an image.
+
+    A vector mesh costs one path per cell: thousands of cells make the SVG
+    slow to write and to open, while an image of the same mesh at the figure's
+    resolution looks the same (axes, labels and markers stay vector).
+    """
+    cells = max(np.size(xe) - 1, 1) * max(np.size(ye) - 1, 1) if np.ndim(xe) <= 1 \
+        else np.size(xe)
+    return bool(cells > RASTER_CELLS)

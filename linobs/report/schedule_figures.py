@@ -38,6 +38,8 @@ from dataclasses import dataclass
 from pathlib import Path
 
 import numpy as np
+
+from linobs.report.map_data import rasterize
 from matplotlib.colors import Normalize, TwoSlopeNorm
 from matplotlib.figure import Figure
 from matplotlib.lines import Line2D
@@ -322,7 +324,7 @@ def _draw_tensor(ax, data: ScheduleData, shown: list[int],  # type: ignore[no-un
     xlog, ylog = _use_log(xs), _use_log(ys)
     xe, ye = _edges(xs, xlog), _edges(ys, ylog)
     norm, cmap = _norm(field)
-    mesh = ax.pcolormesh(xe, ye, np.ma.masked_invalid(field), cmap=cmap, norm=norm,
+    mesh = ax.pcolormesh(xe, ye, np.ma.masked_invalid(field), rasterized=rasterize(xe, ye), cmap=cmap, norm=norm,
                          shading="flat", gid="gain-mesh")
     for j, i in zip(*np.nonzero(gone | ~np.isfinite(field))):
         ax.add_patch(Rectangle((xe[i], ye[j]), xe[i + 1] - xe[i], ye[j + 1] - ye[j],
