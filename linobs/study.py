@@ -377,13 +377,31 @@ def _sorted_keys(value: Any) -> Any:
     return value
 
 
-def canonical_json(config: StudyConfig) -> str:
+RENAMED_SETTINGS: dict[tuple[str, str], str] = {
+    ("observability", "margin_normalization"): "margin_normalisation",
+}
+"""Settings renamed after linobs 0.1.0: (table, new name) -> the name they had.
+
+A study file may still use the earlier name.  The study hash is taken over the
+settings under their earlier names, so that renaming a setting does not change
+the identity of a study (a run folder from before the rename still resumes)."""
+
+
+def canonical_json(config: StudyConfig, *, earlier_names: bool = False) -> str:
     """The configuration as canonical JSON, itself a valid study configuration.
 
     Every setting appears with its default filled in and keys are sorted, except the grid
     axes, which keep their written order (it fixes the numbering of the points).
+    ``earlier_names``: renamed settings under the names they had
+    (:data:`RENAMED_SETTINGS`), as the study hash takes them.
     """
-    data = _sorted_keys(config.model_dump(mode="json"))
+    dumped = config.model_dump(mode="json")
+    if earlier_names:
+        for (section, name), earlier in RENAMED_SETTINGS.items():
+            table = dumped.get(section)
+            if isinstance(table, dict) and name in table:
+                table[earlier] = table.pop(name)
+    data = _sorted_keys(dumped)
     grid = config.grid.model_dump(mode="json")
     axes = {name: _sorted_keys(grid.pop(name)) for name in config.grid.axes}
     data["grid"] = {**_sorted_keys(grid), **axes}
@@ -394,9 +412,10 @@ def study_hash(study: Study) -> str:
     """SHA-256 identifying a study: its canonical configuration, the FMU's SHA-256 and the grid.
 
     Identical study files (and FMU, and points table) give identical hashes; any change to a
-    setting, the FMU or the points gives a different one.  Comments and layout do not count.
+    setting, the FMU or the points gives a different one.  Comments and layout do not count,
+    nor does the spelling of a renamed setting (:data:`RENAMED_SETTINGS`).
     """
-    h = hashlib.sha256(canonical_json(study.config).encode("utf-8"))
+    h = hashlib.sha256(canonical_json(study.config, earlier_names=True).encode("utf-8"))
     h.update(b"\0fmu\0" + study.fmu_sha256.encode())
     h.update(b"\0grid\0" + study.grid.fingerprint().encode())
     return h.hexdigest()

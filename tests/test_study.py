@@ -2,6 +2,7 @@
 
 from __future__ import annotations
 
+import hashlib
 import itertools
 import json
 import shutil
@@ -343,6 +344,30 @@ def test_study_hash_is_stable_and_sensitive(tmp_path: Path, bundled_fmus: dict[s
 
     changed = edit_fmu(fmu, tmp_path / "edited.fmu", xml=lambda x: x + "\n")  # same model, new bytes
     assert study_hash(load_study(_write(tmp_path, base, fmu=changed, name="f.toml"))) not in hashes
+
+
+def test_renamed_setting_is_read_and_keeps_the_study_hash(tmp_path: Path,
+                                                          bundled_fmus: dict[str, Path]) -> None:
+    fmu = bundled_fmus["lfp_cell"]
+    base = CELL_HEAD + "[grid.soc]\nvalues = [0.2, 0.5]\n[observability]\n"
+    new = load_study(_write(tmp_path, base + 'margin_normalization = "sum"\n', fmu=fmu))
+    old = load_study(_write(tmp_path, base + 'margin_normalisation = "sum"\n', fmu=fmu,
+                            name="old.toml"))        # the spelling before the rename
+    assert old.config.observability.margin_normalization == "sum"
+    assert old.config == new.config and study_hash(old) == study_hash(new)
+    # the hash is taken over the earlier name, so it is the hash the study had before the
+    # rename: SHA-256 (hashlib, FIPS 180-4) of the canonical JSON as it was then
+    text = canonical_json(new.config)
+    assert '"margin_normalization":"sum"' in text and "margin_normalisation" not in text
+    earlier = text.replace('"margin_normalization":', '"margin_normalisation":')
+    assert canonical_json(new.config, earlier_names=True) == earlier
+    h = hashlib.sha256(earlier.encode("utf-8"))
+    h.update(b"\0fmu\0" + new.fmu_sha256.encode())
+    h.update(b"\0grid\0" + new.grid.fingerprint().encode())
+    assert study_hash(new) == h.hexdigest()
+    other = load_study(_write(tmp_path, base + 'margin_normalization = "balanced"\n', fmu=fmu,
+                              name="other.toml"))
+    assert study_hash(other) != study_hash(new)         # the value still counts
 
 
 def test_canonical_json_is_a_valid_config(bundled_fmus: dict[str, Path]) -> None:

@@ -23,7 +23,7 @@ a mode is stable when Re λ < −tolerance · ‖Ã‖₂.
 Modes: one per eigenvalue of Ã, both members of a complex pair (same
 margin), in a fixed order (largest real part first) that does not depend on
 the outputs, so mode indices (e.g. in the sampled-data pairs) are stable.
-Margins use the ``margin_normalisation`` argument ("sum", the default, or the
+Margins use the ``margin_normalization`` argument ("sum", the default, or the
 time-unit-free "balanced"; see :mod:`~linobs.observability.pbh`).
 
 Measured outputs: the ``outputs`` argument, else ``settings.outputs``, else
@@ -129,7 +129,7 @@ def analyse_matrices(A: np.ndarray, C: np.ndarray, state_names: Sequence[str],
                      output_nominal: np.ndarray | None = None,
                      settings: ObservabilitySettings | None = None, *,
                      outputs: Sequence[str] | None = None,
-                     margin_normalisation: Normalisation | None = None) -> ObservabilityReport:
+                     margin_normalization: Normalisation | None = None) -> ObservabilityReport:
     """Observability of dx/dt = A x, y = C x with named variables (see the module notes).
 
     Parameters
@@ -140,9 +140,9 @@ def analyse_matrices(A: np.ndarray, C: np.ndarray, state_names: Sequence[str],
     state_nominal, output_nominal : scale factors (default 1)
     settings : thresholds and options (default :class:`ObservabilitySettings`)
     outputs : measured outputs (default ``settings.outputs``, else all rows)
-    margin_normalisation : "balanced" (each block row by its own norm: time-unit free, see
+    margin_normalization : "balanced" (each block row by its own norm: time-unit free, see
         :func:`~linobs.observability.pbh.normalised_pair`) or "sum" (by ‖A‖ + ‖C‖); default
-        ``settings.margin_normalisation``
+        ``settings.margin_normalization``
 
     Returns
     -------
@@ -171,7 +171,7 @@ def analyse_matrices(A: np.ndarray, C: np.ndarray, state_names: Sequence[str],
 
     facts = state_facts(A_s, settings.unobservable_tolerance)
     sampled = sampled_facts(facts, settings.sample_time) if settings.sample_time else None
-    norm_kind = margin_normalisation or settings.margin_normalisation
+    norm_kind = margin_normalization or settings.margin_normalization
     result = assess(facts, C_s, settings.weak_threshold, sampled, norm_kind)
 
     named = participations(facts.eigenvectors, state_names)
@@ -203,7 +203,7 @@ def analyse_matrices(A: np.ndarray, C: np.ndarray, state_names: Sequence[str],
     measured_names = [output_names[j] for j in measured]
     return ObservabilityReport(
         verdict=result.verdict, margin=result.margin, weak_threshold=settings.weak_threshold,
-        unobservable_tolerance=facts.tolerance, margin_normalisation=norm_kind,
+        unobservable_tolerance=facts.tolerance, margin_normalization=norm_kind,
         outputs=measured_names,
         scaling=scaling_record(state_names, sx, measured_names, sy[measured]),
         modes=modes, unobservable_dimension=len(basis), unobservable_basis=basis,
@@ -214,7 +214,7 @@ def analyse_matrices(A: np.ndarray, C: np.ndarray, state_names: Sequence[str],
 
 def analyse(lm: LinearModel, settings: ObservabilitySettings | None = None, *,
             outputs: list[str] | None = None,
-            margin_normalisation: Normalisation | None = None) -> ObservabilityReport:
+            margin_normalization: Normalisation | None = None) -> ObservabilityReport:
     """Observability of a local linear model with its measured outputs.
 
     Parameters
@@ -223,7 +223,7 @@ def analyse(lm: LinearModel, settings: ObservabilitySettings | None = None, *,
     settings : thresholds and options (default :class:`ObservabilitySettings`)
     outputs : measured outputs (default ``settings.outputs``, else every output of ``lm``);
         the other declared outputs are sensor candidates
-    margin_normalisation : as for :func:`analyse_matrices`
+    margin_normalization : as for :func:`analyse_matrices`
 
     Returns
     -------
@@ -231,4 +231,4 @@ def analyse(lm: LinearModel, settings: ObservabilitySettings | None = None, *,
     """
     return analyse_matrices(lm.A, lm.C, lm.states, lm.outputs, lm.state_nominal,
                             lm.output_nominal, settings, outputs=outputs,
-                            margin_normalisation=margin_normalisation)
+                            margin_normalization=margin_normalization)

@@ -9,7 +9,7 @@ from __future__ import annotations
 
 from typing import Literal
 
-from pydantic import BaseModel, ConfigDict, Field
+from pydantic import AliasChoices, BaseModel, ConfigDict, Field
 
 Verdict = Literal["observable", "weak", "unobservable-detectable", "unobservable"]
 VERDICTS: tuple[Verdict, ...] = ("observable", "weak", "unobservable-detectable", "unobservable")
@@ -49,9 +49,11 @@ class ObservabilitySettings(BaseModel):
     output_scales: dict[str, float] = Field(
         default_factory=dict, description="scale of an output (default: its nominal value), "
                                           "e.g. the sensor's resolution")
-    margin_normalisation: Literal["balanced", "sum"] = Field(
-        "balanced", description="balanced: each block row of [λI − A; C] divided by its own norm "
-                                "(independent of the time unit); sum: divided by ‖A‖ + ‖C‖")
+    margin_normalization: Literal["balanced", "sum"] = Field(
+        "balanced", validation_alias=AliasChoices("margin_normalization", "margin_normalisation"),
+        description="balanced: each block row of [λI − A; C] divided by its own norm "
+                    "(independent of the time unit); sum: divided by ‖A‖ + ‖C‖ (the earlier "
+                    "spelling margin_normalisation is read too)")
     candidates: list[str] = Field(
         default_factory=list, description="extra measurable states for the sensor advice "
                                           "(declared outputs not measured are always candidates)")
@@ -86,7 +88,7 @@ class Mode(_Result):
     real: float
     imag: float
     margin: float = Field(description="σ_min([λI − A; C]) / (‖A‖ + ‖C‖) on the scaled system "
-                                      "(or 'balanced', see ObservabilityReport.margin_normalisation)")
+                                      "(or 'balanced', see ObservabilityReport.margin_normalization)")
     visibility: float = Field(
         0.0, description="‖C v‖₂ / (‖A‖ + ‖C‖) for the unit (scaled) right eigenvector v: the "
                          "PBH eigenvector test, graded; an upper bound of the margin that is "
@@ -156,9 +158,10 @@ class ObservabilityReport(_Result):
     margin: float = Field(description="smallest mode margin (see Mode.margin)")
     weak_threshold: float
     unobservable_tolerance: float
-    margin_normalisation: Literal["sum", "balanced"] = Field(
-        "sum", description="margins relative to ‖A‖ + ‖C‖ ('sum'), or with each block row "
-                           "divided by its own norm ('balanced': independent of the time unit)")
+    margin_normalization: Literal["sum", "balanced"] = Field(
+        "sum", validation_alias=AliasChoices("margin_normalization", "margin_normalisation"),
+        description="margins relative to ‖A‖ + ‖C‖ ('sum'), or with each block row "
+                    "divided by its own norm ('balanced': independent of the time unit)")
     outputs: list[str]
     scaling: Scaling
     modes: list[Mode]

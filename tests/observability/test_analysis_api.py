@@ -2,6 +2,8 @@
 
 from __future__ import annotations
 
+import json
+
 import numpy as np
 import pytest
 
@@ -55,6 +57,13 @@ def test_report_round_trips_through_json() -> None:
     again = ObservabilityReport.model_validate_json(report.model_dump_json())
     assert again == report
     assert report.summary and "\n" not in report.summary
+    # a report stored before margin_normalization was spelled so reads the same
+    stored = json.loads(report.model_dump_json())
+    stored["margin_normalisation"] = stored.pop("margin_normalization")
+    assert ObservabilityReport.model_validate(stored) == report
+    settings = ObservabilitySettings.model_validate({"margin_normalisation": "sum"})
+    assert settings.margin_normalization == "sum"
+    assert "margin_normalization" in settings.model_dump()
 
 
 def test_observability_matrix_is_reported_not_decisive() -> None:
