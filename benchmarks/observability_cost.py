@@ -1,6 +1,6 @@
 """Per-point cost of the observability analysis, and how often its verdict is right.
 
-1. Cost: ``analyse_matrices`` (everything: PBH, staircase, Gramian, observability
+1. Cost: ``analyze_matrices`` (everything: PBH, staircase, Gramian, observability
    matrix, naming, report) per point on thermal RC ladders of n = 4, 20, 60 nodes
    measured at one end, and the symmetric ladder with an odd node count (n + 1)
    measured at its middle node (half its modes unobservable); also the 2n-state
@@ -32,7 +32,7 @@ import time
 
 import numpy as np
 
-from linobs.observability.analysis import analyse_matrices
+from linobs.observability.analysis import analyze_matrices
 
 
 def laplacian(n: int) -> np.ndarray:
@@ -54,17 +54,17 @@ def measured(n_states: int, node: int) -> np.ndarray:
 
 def per_point(A: np.ndarray, C: np.ndarray, repeat: int) -> tuple[float, str]:
     names = [f"s{i}" for i in range(A.shape[0])]
-    report = analyse_matrices(A, C, names, ["y"])          # warm-up
+    report = analyze_matrices(A, C, names, ["y"])          # warm-up
     t0 = time.perf_counter()
     for _ in range(repeat):
-        analyse_matrices(A, C, names, ["y"])
+        analyze_matrices(A, C, names, ["y"])
     return (time.perf_counter() - t0) / repeat, report.verdict
 
 
 def cost_table(repeat: int) -> None:
-    print("per-point cost of analyse_matrices (ms), one BLAS thread:"
+    print("per-point cost of analyze_matrices (ms), one BLAS thread:"
           if os.environ.get("OPENBLAS_NUM_THREADS") == "1" else
-          f"per-point cost of analyse_matrices (ms), OPENBLAS_NUM_THREADS="
+          f"per-point cost of analyze_matrices (ms), OPENBLAS_NUM_THREADS="
           f"{os.environ.get('OPENBLAS_NUM_THREADS')}:")
     print(f"  {'model':38s} {'states':>6s} {'ms/point':>9s}  verdict")
     for n in (4, 20, 60):
@@ -89,7 +89,7 @@ def verdict_rates() -> None:
                 N = A.shape[0]
                 C = measured(N, 0 if where == "end" else n // 2)
                 truth = 0 if where == "end" else (n // 2 if kind == "thermal" else 2 * (n // 2))
-                report = analyse_matrices(A, C, [f"s{i}" for i in range(N)], ["y"])
+                report = analyze_matrices(A, C, [f"s{i}" for i in range(N)], ["y"])
                 ok = report.unobservable_dimension == truth and (
                     (truth == 0) == (report.verdict in ("observable", "weak")))
                 blocks = [C]

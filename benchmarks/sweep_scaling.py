@@ -11,7 +11,7 @@ chunked by :func:`linobs.run.chunking.chunk_size`.  Each executor is started and
 running, FMU loaded) before timing; the rounds of the contenders are
 interleaved (so drift in machine speed hits all alike); ratios of the best
 and of the median of ``--rounds`` rounds are printed (on shared virtual
-machines single sub-second rounds vary by tens of per cent, and the
+machines single sub-second rounds vary by tens of percent, and the
 median ratio is the steadier figure), all from this one process.
 Targets: pool speed-up 1 -> 2 workers >= 1.7 on 2 cores; Dask local
 cluster (2 workers) <= 1.3 x the 2-worker pool.

@@ -36,7 +36,7 @@ from linobs.operating.trim_spec import TrimSpec
 
 
 def serpentine(axes: Sequence[Sequence[float]]) -> list[tuple[float, ...]]:
-    """All grid points, ordered so that neighbours in the list are neighbours in the grid.
+    """All grid points, ordered so that neighbors in the list are neighbors in the grid.
 
     The first axis varies slowest; every inner axis runs forwards and
     backwards alternately (a boustrophedon walk).

@@ -28,7 +28,7 @@ import numpy as np
 import linobs
 from linobs.estimator.schedule import GainSchedule
 from linobs.export.table import read_table
-from linobs.observability.analysis import analyse
+from linobs.observability.analysis import analyze
 
 STUDY = """
 name = "four_tank_walkthrough"
@@ -64,7 +64,7 @@ def one_point() -> None:
         print(f"trim: converged={tr.converged} in {tr.iterations} iterations, "
               f"levels {np.round([tr.states[s] for s in ('h1', 'h2', 'h3', 'h4')], 3)} cm")
         lm = linobs.linearize(model, tr.point(), method="exact")
-        report = analyse(lm, outputs=["y1", "y2"])
+        report = analyze(lm, outputs=["y1", "y2"])
         print(f"local model: method {lm.method}; verdict {report.verdict}, "
               f"smallest mode margin {report.margin:.3g}")
         try:
@@ -93,7 +93,7 @@ def run_estimator(table_path: Path) -> None:
     node = schedule.data.nodes[len(schedule.data.nodes) // 2]
     x_true = np.asarray(node.x0)
     u = np.asarray(node.u0)
-    y = np.asarray(node.y0)                         # a plant at rest at the centre node
+    y = np.asarray(node.y0)                         # a plant at rest at the center node
     x_hat = x_true + np.array([1.0, -1.0, 2.0, -2.0])
     for k in range(300):
         x_hat, ev = schedule.step(x_hat, u, y, u_now=u)

@@ -72,7 +72,7 @@ def run_demo(console: Console, out: Path | None = None, *, workers: int | None =
         better = 100.0 * (1.0 - rms["soc"] / fixed["soc"])
         console.print(f"  Along the validation scenario the schedule's state-of-charge RMS error "
                       f"is {rms['soc']:.4f} against {fixed['soc']:.4f} for the single fixed-gain "
-                      f"estimator designed at the envelope's centre: {better:.0f} % "
+                      f"estimator designed at the envelope's center: {better:.0f} % "
                       f"{'better' if better > 0 else 'worse'}.")
     if summary.export_refused:
         console.print(f"  Export refused: {escape(summary.export_refused)}")

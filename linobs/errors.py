@@ -38,7 +38,7 @@ class PlatformBinaryError(ModelError):
 
 
 class InstantiationError(ModelError):
-    """The FMU refused to instantiate or initialise."""
+    """The FMU refused to instantiate or initialize."""
 
 
 class StudyError(UsageError):

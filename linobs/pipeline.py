@@ -92,7 +92,7 @@ class RunSummary(BaseModel):
     validation_rms: dict[str, float | None] | None = Field(
         None, description="RMS estimation error per state of the schedule on the nonlinear plant")
     fixed_gain_rms: dict[str, float | None] | None = Field(
-        None, description="the same for the fixed-gain estimator designed at the envelope's centre")
+        None, description="the same for the fixed-gain estimator designed at the envelope's center")
     comparison: list[str] | None = None
     notes: list[str] = Field(default_factory=list)
     files: dict[str, str] = Field(default_factory=dict, description="files written, by role")
@@ -225,7 +225,7 @@ class _Runner:
         return int(getattr(self.executor, "workers", None) or os.cpu_count() or 1)
 
     def execute(self, stage: str, task: Task, chunks: Sequence[Chunk], total: int) -> StageSummary:
-        """Run ``chunks`` (the missing part of a stage of ``total`` items) and summarise it."""
+        """Run ``chunks`` (the missing part of a stage of ``total`` items) and summarize it."""
         store = self.store
         done = total - sum(len(c.items) for c in chunks)
         if self.on_stage is not None:

@@ -270,7 +270,7 @@ class Study:
 
     @property
     def slow_axes(self) -> tuple[str, ...]:
-        """Grid variables that are ``fixed`` parameters: changing one re-initialises the model."""
+        """Grid variables that are ``fixed`` parameters: changing one re-initializes the model."""
         by_name = self.catalogue.by_name
         return tuple(n for n in self.grid.names
                      if by_name[n].role == "parameter" and by_name[n].variability == "fixed")

@@ -29,7 +29,7 @@ Vector = Annotated[
     PlainSerializer(_serialize, return_type=list),
     WithJsonSchema({"type": "array", "items": {"type": "number"}}),
 ]
-"""A 1-D float array (serialised as a list of numbers)."""
+"""A 1-D float array (serialized as a list of numbers)."""
 
 Matrix = Annotated[
     np.ndarray,
@@ -37,4 +37,4 @@ Matrix = Annotated[
     PlainSerializer(_serialize, return_type=list),
     WithJsonSchema({"type": "array", "items": {"type": "array", "items": {"type": "number"}}}),
 ]
-"""A 2-D float array, row = equation (serialised as nested lists)."""
+"""A 2-D float array, row = equation (serialized as nested lists)."""

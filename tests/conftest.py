@@ -10,7 +10,7 @@ import scipy.linalg  # noqa: F401
 from threadpoolctl import threadpool_limits
 
 # The tests solve many small linear-algebra problems; a multi-threaded BLAS only
-# adds synchronisation there (and oversubscribes the cores when worker processes
+# adds synchronization there (and oversubscribes the cores when worker processes
 # run beside the tests).  Common practice for small-matrix numerics.
 threadpool_limits(1)
 

@@ -27,7 +27,7 @@ def test_demo_runs_the_cell_end_to_end(tmp_path: Path) -> None:
     # the flat mid-range OCV plateau of this chemistry (common practice) makes soc weakly
     # observable there; the demo says where
     assert "state of charge (soc) is weakly observable for soc from" in out
-    assert "fixed-gain estimator designed at the envelope's centre" in out and "% better" in out
+    assert "fixed-gain estimator designed at the envelope's center" in out and "% better" in out
     summary = json.loads((tmp_path / "demo" / "summary.json").read_text())
     assert summary["weak"] > 0 and summary["observable"] > 0
     # the schedule beats the single fixed gain on soc (issue requirement; measured here)

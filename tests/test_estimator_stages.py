@@ -125,7 +125,7 @@ def test_frozen_points_pass_and_schedule_interpolates_at_nodes(
         kalman_run: tuple[dict, Path]) -> None:
     summary, run = kalman_run
     frozen = json.loads((run / "validation" / "frozen.json").read_text())
-    # 9 cell centres of a 4 × 4 grid + 10 random interior points
+    # 9 cell centers of a 4 × 4 grid + 10 random interior points
     assert summary["validation_frozen_passed"] == 19 and summary["validation_frozen_failed"] == 0
     assert summary["validation_worst_decay_reserve"] > 0
     radii = [p["spectral_radius"] for p in frozen["points"]]

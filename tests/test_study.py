@@ -106,7 +106,7 @@ MALFORMED = {
     "unknown key in a section": (
         CELL_HEAD + "paramters = {hA = 1.0}\n", ("model.paramters: unknown key; did you mean "
                                                 "'parameters'? (allowed here: fmu, bundled, parameters)")),
-    "misspelt key suggests": (
+    "misspelled key suggests": (
         CELL_HEAD + "[grid.soc]\nvalue = [0.5]\n", "grid.soc.value: unknown key; did you mean 'values'?"),
     "missing model": ('name = "x"\n', "model: the [model] table is missing"),
     "both fmu and bundled": (
@@ -302,7 +302,7 @@ def test_trim_resolution_and_slow_axes(tmp_path: Path, bundled_fmus: dict[str, P
     assert study.trim.free_states == ("v_rc1",) and study.trim.pinned_states == ("v_rc2",)
     assert study.trim_unknowns == ("v_rc1", "t_amb")
     assert study.trim_equations == ("der(v_rc1)", "t_surf")
-    assert study.slow_axes == ("mass",)             # a fixed parameter: changing it re-initialises
+    assert study.slow_axes == ("mass",)             # a fixed parameter: changing it re-initializes
     order = study.continuation_order()
     masses = [study.point_values(i)["mass"] for i in order]
     # the slow axis changes once along the whole order

@@ -1,10 +1,10 @@
-"""Continuity of a gain schedule: large gain changes between neighbouring nodes.
+"""Continuity of a gain schedule: large gain changes between neighboring nodes.
 
 Interpolating between two nodes whose gains differ a lot gives, in between,
 a gain neither design vouches for; and a design that changes character from
 one node to the next (a different pole pattern, a node the observability
 analysis calls weak, a refused node) usually signals a problem in the
-design, not in the plant.  :func:`gain_jumps` lists every neighbouring pair
+design, not in the plant.  :func:`gain_jumps` lists every neighboring pair
 whose relative gain change
 
     ‖L_i − L_j‖_F / max(‖L_i‖_F, ‖L_j‖_F)
@@ -12,7 +12,7 @@ whose relative gain change
 exceeds a threshold, with the likely cause, and every pair where one node is
 refused (the edge of the usable region).
 
-Neighbours are the tensor-grid nodes one step apart along one axis, or the
+Neighbors are the tensor-grid nodes one step apart along one axis, or the
 Delaunay edges of scattered nodes (the pairs the interpolation blends).
 
 Likely causes, decided in this order
@@ -34,7 +34,7 @@ Likely causes, decided in this order
 References
 ----------
 Rugh, W. J. & Shamma, J. S. (2000). Research on gain scheduling. Automatica
-36(10), 1401-1425 (why neighbouring designs must vary smoothly).
+36(10), 1401-1425 (why neighboring designs must vary smoothly).
 
 Kautsky, J., Nichols, N. K. & Van Dooren, P. (1985). Robust pole assignment in
 linear state feedback. International Journal of Control 41(5), 1129-1155 (the
@@ -73,13 +73,13 @@ _ADVICE: dict[str, str] = {
 
 
 class Jump(BaseModel):
-    """One pair of neighbouring nodes whose gains differ a lot (or whose designs differ in kind)."""
+    """One pair of neighboring nodes whose gains differ a lot (or whose designs differ in kind)."""
 
     node_a: int
     node_b: int
     values_a: dict[str, float] = Field(description="scheduling values of node_a")
     values_b: dict[str, float] = Field(description="scheduling values of node_b")
-    axis: str | None = Field(None, description="tensor: the axis along which they neighbour")
+    axis: str | None = Field(None, description="tensor: the axis along which they neighbor")
     relative_change: float | None = Field(
         description="‖ΔL‖_F / max(‖L_a‖_F, ‖L_b‖_F); None when a node is refused")
     pole_shift: float | None = Field(
@@ -127,7 +127,7 @@ def _model_change(a: NodeDesign, b: NodeDesign) -> float:
 def gain_jumps(schedule: GainSchedule, threshold: float, *,
                verdicts: Mapping[int, str] | None = None,
                pole_tolerance: float = 0.05) -> list[Jump]:
-    """Neighbouring nodes whose gains change by more than ``threshold`` (relative).
+    """Neighboring nodes whose gains change by more than ``threshold`` (relative).
 
     Parameters
     ----------

@@ -31,7 +31,7 @@ Python; :func:`expm_stack` is the scaling-and-squaring method with the
 degree-13 Padé approximant (Higham 2005) written with batched products and
 one batched solve, every matrix with its own scaling power s = max(0,
 ⌈log₂(‖M‖₁ / θ₁₃)⌉), θ₁₃ = 5.37 (the squarings run masked, up to the largest
-s).  The blocks that enter linearly (B, Q_c) are normalised to unit largest
+s).  The blocks that enter linearly (B, Q_c) are normalized to unit largest
 entry before the exponential and the result scaled back, so that a large
 noise level does not inflate ‖M‖ and over-scale the exponential (the
 integrals are linear in B and in Q_c).
@@ -157,7 +157,7 @@ def process_noise_covariance(A: np.ndarray, Q_continuous: np.ndarray, sample_tim
 
     Returns
     -------
-    (n, n) or (k, n, n) array, symmetrised.
+    (n, n) or (k, n, n) array, symmetrized.
 
     References
     ----------

@@ -75,7 +75,7 @@ import numpy as np
 from pydantic import AliasChoices, BaseModel, Field
 
 from linobs.errors import UsageError
-from linobs.estimator.interpolation import Triangulation, cell_centres
+from linobs.estimator.interpolation import Triangulation, cell_centers
 from linobs.estimator.schedule import GainSchedule
 from linobs.estimator.settings import ValidationSettings
 
@@ -151,9 +151,9 @@ def error_dynamics(Phi: np.ndarray, C: np.ndarray, L: np.ndarray,
 
 
 def frozen_points(grid: Grid, settings: ValidationSettings) -> list[dict[str, float]]:
-    """The scheduling values to check: every cell centre, then random interior points.
+    """The scheduling values to check: every cell center, then random interior points.
 
-    Tensor grids: the centre of every cell (midpoints along each axis with
+    Tensor grids: the center of every cell (midpoints along each axis with
     several values, C order), then ``settings.random_points`` points uniform in
     the grid's box.  Scattered grids: the centroid of every Delaunay simplex
     (scaled coordinates, as the schedule interpolates), then random points
@@ -174,13 +174,13 @@ def frozen_points(grid: Grid, settings: ValidationSettings) -> list[dict[str, fl
     count = int(settings.random_points)
     if grid.kind == "tensor":
         axes = [a.array for a in grid.axes]
-        centres = cell_centres(axes)
+        centers = cell_centers(axes)
         lo = np.array([a[0] for a in axes])
         hi = np.array([a[-1] for a in axes])
         random = lo + (hi - lo) * rng.random((count, len(axes)))
     else:
         tri = Triangulation(grid.points)
-        centres = tri.centroids()
+        centers = tri.centroids()
         if len(tri.simplices):
             volumes = tri.volumes()
             chosen = rng.choice(len(volumes), size=count, p=volumes / volumes.sum())
@@ -188,7 +188,7 @@ def frozen_points(grid: Grid, settings: ValidationSettings) -> list[dict[str, fl
             random = np.einsum("nv,nvk->nk", bary, tri.points[tri.simplices[chosen]])
         else:
             random = np.zeros((0, grid.dims))
-    rows = np.vstack([centres, random]) if len(random) else centres
+    rows = np.vstack([centers, random]) if len(random) else centers
     return [{n: float(v) for n, v in zip(grid.names, row)} for row in rows]
 
 

@@ -14,7 +14,7 @@ the same weights, and the caller can see which nodes a value depends on.
   variable: the segments between consecutive sorted nodes.
 
 Weights at or below :data:`WEIGHT_FLOOR` are set to zero (and the rest
-renormalised), so that a value exactly at a node or on a shared face does not
+renormalized), so that a value exactly at a node or on a shared face does not
 depend, through a rounding-level weight, on a node it does not touch.
 
 References
@@ -37,14 +37,14 @@ from collections.abc import Sequence
 
 import numpy as np
 
-__all__ = ["WEIGHT_FLOOR", "Triangulation", "cell_centres", "tensor_edges", "tensor_weights"]
+__all__ = ["WEIGHT_FLOOR", "Triangulation", "cell_centers", "tensor_edges", "tensor_weights"]
 
 #: Interpolation weights at or below this are treated as exactly zero.
 WEIGHT_FLOOR = 1e-12
 
 
 def _tidy(weights: np.ndarray) -> np.ndarray:
-    """Zero the rounding-level weights and renormalise each row to sum to one."""
+    """Zero the rounding-level weights and renormalize each row to sum to one."""
     w = np.where(weights > WEIGHT_FLOOR, weights, 0.0)
     total = w.sum(axis=1, keepdims=True)
     return w / np.where(total > 0, total, 1.0)
@@ -125,10 +125,10 @@ def tensor_edges(shape: Sequence[int]) -> list[tuple[int, int, int]]:
     return out
 
 
-def cell_centres(axes: Sequence[np.ndarray]) -> np.ndarray:
-    """The centre of every cell of a tensor grid (C order), shape ``(cells, k)``.
+def cell_centers(axes: Sequence[np.ndarray]) -> np.ndarray:
+    """The center of every cell of a tensor grid (C order), shape ``(cells, k)``.
 
-    Along an axis with several values the centres are the midpoints of
+    Along an axis with several values the centers are the midpoints of
     consecutive values; an axis with one value contributes that value.  A grid
     whose axes all hold one value has no cells (an empty array).
     """

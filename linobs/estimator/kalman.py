@@ -21,10 +21,10 @@ P_post = P and ``error_std`` = √diag P.
 
 A steady-state Kalman filter exists where the pair (F, C) is detectable and
 the noise leaves no mode on the stability boundary unexcited (then the
-stabilising Riccati solution exists).  Undetectable nodes are refused; nodes
-where the Riccati equation has no stabilising solution are refused naming the
+stabilizing Riccati solution exists).  Undetectable nodes are refused; nodes
+where the Riccati equation has no stabilizing solution are refused naming the
 modes the noise does not reach.  Where the noise does not reach an unstable
-mode that is observable, the stabilising solution still exists; the design
+mode that is observable, the stabilizing solution still exists; the design
 is kept and its message says so.  Every design's discrete error dynamics is
 checked to have spectral radius < 1.
 
@@ -35,7 +35,7 @@ problems", Trans. ASME J. Basic Engineering 82(1):35-45.
 R. E. Kalman and R. S. Bucy (1961), "New results in linear filtering and
 prediction theory", Trans. ASME J. Basic Engineering 83(1):95-108.
 B. D. O. Anderson and J. B. Moore (1979), "Optimal Filtering", Prentice-Hall,
-chapter 4 (steady-state filter and predictor; existence of the stabilising
+chapter 4 (steady-state filter and predictor; existence of the stabilizing
 solution).
 C. F. Van Loan (1978), "Computing integrals involving the matrix exponential",
 IEEE Trans. Automatic Control 23(3):395-404.
@@ -138,7 +138,7 @@ def unreached_modes(F: np.ndarray, Q: np.ndarray, sx: np.ndarray, domain: Domain
 
     The PBH screen of the dual pair (F̃ᵀ, Q̃^½) on the scaled model
     (F̃ = S⁻¹ F S, Q̃ = S⁻¹ Q S⁻¹); ``detectable`` of the result means
-    "stabilisable by the noise".
+    "stabilizable by the noise".
 
     References
     ----------
@@ -259,7 +259,7 @@ def kalman_designs(A: np.ndarray, B: np.ndarray, C: np.ndarray, Phi: np.ndarray,
             ok[i] = False
             cause = (f"the process noise does not reach {'; '.join(unstable)}, which does "
                      "not decay by itself" if unstable else
-                     "the Riccati equation has no stabilising solution at this node")
+                     "the Riccati equation has no stabilizing solution at this node")
             targets = ", ".join(sorted({states[j] for _, js in slow for j in js}))
             fix = (f"; give process_noise for {targets} (or input_noise on an input that "
                    "drives it)" if unstable else "; check the noise levels and the local model")
@@ -271,7 +271,7 @@ def kalman_designs(A: np.ndarray, B: np.ndarray, C: np.ndarray, Phi: np.ndarray,
                          "iteration did not converge)")
         if unstable:
             notes.append(f"the process noise does not reach the unstable {'; '.join(unstable)}; "
-                         "the gain comes from the stabilising Riccati solution")
+                         "the gain comes from the stabilizing Riccati solution")
         messages[i] = "; ".join(notes)
     return KalmanDesigns(L=L, L_continuous=L_cont, P_prior=P_prior, P_post=P_post, Q=Q, R=R,
                          error_poles=error_poles, ok=ok, messages=messages, unmovable=unmovable)

@@ -125,8 +125,8 @@ def _observable_part_gain(F: np.ndarray, H: np.ndarray, poles: np.ndarray, sx: n
     F_s, H_s = scaled_pair(F[None], H[None], sx[None], sy[None])
     F_s, H_s = F_s[0], H_s[0]
     n = F.shape[0]
-    normaliser = float(np.linalg.norm(F_s, 2) + np.linalg.norm(H_s, 2)) or 1.0
-    stair = observability_staircase(F_s, H_s, default_tolerance(n) * normaliser)
+    normalizer = float(np.linalg.norm(F_s, 2) + np.linalg.norm(H_s, 2)) or 1.0
+    stair = observability_staircase(F_s, H_s, default_tolerance(n) * normalizer)
     no = stair.observable_dimension
     if stair.unobservable_dimension == 0:
         return None

@@ -4,7 +4,7 @@ The local model is affine, in deviation from the operating point::
 
     x' = dx0 + A (x − x0) + B (u − u0),      y = y0 + C (x − x0) + D (u − u0)
 
-and its exact zero-order-hold discretisation at Ts is::
+and its exact zero-order-hold discretization at Ts is::
 
     x[k+1] = x0 + Φ (x[k] − x0) + Γ (u[k] − u0) + Γ₀ dx0,     Γ₀ = ∫₀^Ts e^{As} ds
 
@@ -16,7 +16,7 @@ Estimator update (the same in Python, in the exported C code and in the estimato
 
 with ŷ = y0 + C(x̂ − x0) + D(u − u0).  A continuous design (``domain = "continuous"``)
 stores its continuous gain in ``L_continuous`` and, in ``L``, the gain of the same observer
-discretised by zero-order hold, so that every node runs the discrete update above.
+discretized by zero-order hold, so that every node runs the discrete update above.
 """
 
 from __future__ import annotations

@@ -66,7 +66,7 @@ from linobs.estimator.schedule import GainSchedule, ScheduleData
 from linobs.estimator.settings import ValidationSettings
 
 __all__ = ["Comparison", "EstimatorRun", "NeesResult", "NonlinearReport", "PlantRun",
-           "StateComparison", "StateResult", "assess_run", "centre_node_index", "compare",
+           "StateComparison", "StateResult", "assess_run", "center_node_index", "compare",
            "fixed_gain_schedule", "initial_estimate", "run_estimator", "simulate_plant",
            "validate_nonlinear"]
 
@@ -399,8 +399,8 @@ def _initial(schedule: GainSchedule, plant_run: PlantRun, settings: ValidationSe
 
 
 # ------------------------------------------------------------------------------ fixed gain
-def centre_node_index(data: ScheduleData) -> int:
-    """The usable node nearest the centre of the grid's box (axes scaled by their range).
+def center_node_index(data: ScheduleData) -> int:
+    """The usable node nearest the center of the grid's box (axes scaled by their range).
 
     Ties go to the lowest node number.
     """
@@ -427,8 +427,8 @@ def fixed_gain_schedule(schedule: GainSchedule, node: NodeDesign | None = None) 
     ----------
     schedule : GainSchedule
     node : NodeDesign, optional
-        A node designed at the exact centre of the envelope; default the
-        schedule's node nearest the centre (:func:`centre_node_index`).
+        A node designed at the exact center of the envelope; default the
+        schedule's node nearest the center (:func:`center_node_index`).
 
     Returns
     -------
@@ -436,7 +436,7 @@ def fixed_gain_schedule(schedule: GainSchedule, node: NodeDesign | None = None) 
         A schedule over no axes with that one node (its local model and gain).
     """
     if node is None:
-        node = schedule.data.nodes[centre_node_index(schedule.data)]
+        node = schedule.data.nodes[center_node_index(schedule.data)]
     if node.status != "ok":
         raise UsageError(f"the fixed-gain node was refused ({node.message}); pass a node with a "
                          f"design")

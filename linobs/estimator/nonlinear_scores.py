@@ -8,7 +8,7 @@ Scores (:func:`assess_run`)
   steady-state σ (Kalman), or 5 % of the initial error (Luenberger; for a
   state that starts without error, 5 % of the range its true value covers);
   ``None`` when the last sample is outside the band;
-* Kalman: the normalised estimation error squared NEES_k = e_kᵀ P_k⁻¹ e_k with
+* Kalman: the normalized estimation error squared NEES_k = e_kᵀ P_k⁻¹ e_k with
   P_k the steady-state covariance interpolated between the nodes (barycentric
   weights of the schedule), and its time average over the whole run and over
   the settled part (after every state converged), against the two-sided

@@ -117,12 +117,12 @@ def unobservable_modes(F: np.ndarray, H: np.ndarray, tolerance: float | None = N
     """
     n = F.shape[0]
     tol = default_tolerance(n) if tolerance is None else tolerance
-    normaliser = float(np.linalg.norm(F, 2) + (np.linalg.norm(H, 2) if H.size else 0.0)) or 1.0
-    stair = observability_staircase(F, H, tol * normaliser)
+    normalizer = float(np.linalg.norm(F, 2) + (np.linalg.norm(H, 2) if H.size else 0.0)) or 1.0
+    stair = observability_staircase(F, H, tol * normalizer)
     found = list(np.linalg.eigvals(stair.unobservable_matrix)) \
         if stair.unobservable_dimension else []
     lam = np.linalg.eigvals(F)
-    margins = pbh_margins(F, H, lam, normaliser)
+    margins = pbh_margins(F, H, lam, normalizer)
     for mu in lam[margins < tol]:
         close = [abs(mu - f) <= 1e-6 * max(abs(mu), 1.0) for f in found]
         if not any(close):

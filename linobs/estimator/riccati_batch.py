@@ -1,6 +1,6 @@
 """Algebraic Riccati equations for a whole grid at once: the structure-preserving doubling algorithm.
 
-The estimator needs, per node, the stabilising solution of the filter
+The estimator needs, per node, the stabilizing solution of the filter
 Riccati equations (prior covariance P)::
 
     discrete:    P = Φ P Φᵀ − Φ P Cᵀ (C P Cᵀ + R)⁻¹ C P Φᵀ + Q
@@ -19,7 +19,7 @@ Discrete (Chu, Fan, Lin & Wang 2004), from A₀ = Â, G₀ = Ĝ, H₀ = Ĥ::
 
 Continuous (Chu, Fan & Lin 2005): the Cayley transform with γ > 0 of the
 Hamiltonian matrix gives a discrete problem in standard symplectic form with
-the same stabilising solution; with Â_γ = Â − γI and W = Â_γ + Ĝ Â_γ⁻ᵀ Ĥ::
+the same stabilizing solution; with Â_γ = Â − γI and W = Â_γ + Ĝ Â_γ⁻ᵀ Ĥ::
 
     A₀ = I + 2γ W⁻¹,    G₀ = 2γ W⁻¹ Ĝ Â_γ⁻ᵀ,    H₀ = 2γ W⁻ᵀ Ĥ Â_γ⁻¹
 
@@ -31,11 +31,11 @@ the Hamiltonian's eigenvalues, so that the Cayley map spreads them evenly).
 A node counts as converged when ‖H_{k+1} − H_k‖_F ≤ 1e-14 · ‖H_{k+1}‖_F and
 ‖A_k‖_F ≤ 1e-8 (the closed loop has contracted; without it a node whose
 noise leaves a mode on the stability boundary would "converge" to the
-non-stabilising solution), and the relative residual of the Riccati equation
+non-stabilizing solution), and the relative residual of the Riccati equation
 is ≤ 1e-10.  Nodes that do not converge in :data:`MAX_ITERATIONS` steps are
 solved per node by scipy (``solve_discrete_are`` / ``solve_continuous_are``,
 the ordered Schur method of Laub 1979 / Arnold & Laub 1984) and reported in
-the result; nodes scipy cannot solve either (no stabilising solution) are
+the result; nodes scipy cannot solve either (no stabilizing solution) are
 reported as failed.
 
 References
@@ -70,7 +70,7 @@ Method = Literal["doubling", "scipy", "failed"]
 
 
 class RiccatiSolution(NamedTuple):
-    """Stabilising solutions of a stack of filter Riccati equations."""
+    """Stabilizing solutions of a stack of filter Riccati equations."""
 
     P: np.ndarray
     """(k, n, n): the solutions (NaN where ``method == "failed"``)."""

@@ -250,7 +250,7 @@ class GainSchedule:
         return {a: float(v) for a, v in zip(self.axes, row)}
 
     def edges(self) -> list[tuple[int, int, str | None]]:
-        """Neighbouring node pairs ``(i, j, axis)``: tensor — one step along ``axis``;
+        """Neighboring node pairs ``(i, j, axis)``: tensor — one step along ``axis``;
         scattered — the Delaunay edges (``axis`` None)."""
         if self._tri is None:
             return [(i, j, self.axes[d]) for i, j, d in tensor_edges(self.shape)]

@@ -3,12 +3,12 @@
 Conventions
 -----------
 * The estimator runs at the sample time ``Ts``; the plant's local models are
-  discretised by exact zero-order hold.
+  discretized by exact zero-order hold.
 * ``process_noise`` gives, per state, the power spectral density q of a white
   noise added to that state's derivative (units of the state² per second);
   ``input_noise`` gives, per input, the PSD of a white noise on the input
   (units² · s), entering through B.  Together Q_c = diag(q) + B diag(r_u) Bᵀ,
-  discretised by Van Loan's method.
+  discretized by Van Loan's method.
 * ``measurement_noise`` gives, per measured output, the **standard deviation**
   σ of one sample; the discrete design uses R = diag(σ²), a continuous design
   R_c = diag(σ²)·Ts (the PSD that gives the same sampled variance).
@@ -68,7 +68,7 @@ class EstimatorSettings(BaseModel):
         True, description="Luenberger: one pole pattern for the whole grid (the slowest node's), so "
                           "that gains vary smoothly between nodes")
     continuity_threshold: float = Field(
-        0.5, gt=0, description="flag neighbouring nodes whose gains differ by more than this "
+        0.5, gt=0, description="flag neighboring nodes whose gains differ by more than this "
                                "relative change (‖ΔL‖ / max ‖L‖)")
 
 
@@ -90,7 +90,7 @@ class ValidationSettings(BaseModel):
     model_config = ConfigDict(extra="forbid")
 
     random_points: int = Field(50, ge=0, description="random interior points of the frozen-point "
-                                                     "check (besides every cell centre)")
+                                                     "check (besides every cell center)")
     seed: int = Field(0, description="seed of the random points and of the measurement noise")
     spectral_radius_max: float = Field(
         0.999, gt=0, le=1, description="discrete: error dynamics Φ − L C (or its filter form) must "
@@ -106,7 +106,7 @@ class ValidationSettings(BaseModel):
         default_factory=list, description="input profile; empty: generated to sweep the envelope")
     nees_confidence: float = Field(0.95, gt=0, lt=1, description="two-sided NEES bounds")
     fixed_gain: bool = Field(True, description="also run the best single fixed-gain estimator "
-                                               "(designed at the envelope's centre) for comparison")
+                                               "(designed at the envelope's center) for comparison")
     convergence_band: float = Field(
         3.0, gt=0, description="converged when |error| stays below this many standard deviations "
                                "of the steady-state covariance (Kalman) or 5 % of the initial "

@@ -45,7 +45,7 @@ def node_validations(schedule: GainSchedule, own: FrozenReport, between: FrozenR
     ----------
     schedule : the designed schedule
     own : frozen-point report at the nodes themselves (points = the node points)
-    between : the frozen-point report of the validate stage (cell centres, random points)
+    between : the frozen-point report of the validate stage (cell centers, random points)
     """
     data = schedule.data
     k = len(data.nodes)

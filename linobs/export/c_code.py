@@ -27,7 +27,7 @@ The arithmetic is that of :class:`linobs.estimator.schedule.GainSchedule`
 (``evaluate`` and ``step``): multilinear weights on the cell holding the
 scheduling value after clamping it to the grid's box, weights at or below
 :data:`linobs.estimator.interpolation.WEIGHT_FLOOR` set to zero and the rest
-renormalised, a value usable only when every node with a non-zero weight has
+renormalized, a value usable only when every node with a non-zero weight has
 a design, and the correction skipped where it is not.  Doubles are printed
 with ``%.17g`` and read back exactly.  The continuous gain of a continuous
 design is not exported: every node runs the discrete update.

@@ -9,7 +9,7 @@ Variables (all Real, value references in this order)
 ----------------------------------------------------
 * inputs: the plant inputs (the schedule's input names) and the measured
   outputs (the schedule's output names); start values: the operating point
-  of the node nearest the grid's centre;
+  of the node nearest the grid's center;
 * outputs: ``<state>_hat`` (the estimate), for Kalman schedules
   ``<state>_sigma`` (√ of the diagonal of the steady-state covariance
   interpolated with the schedule's weights; NaN where a node with a weight
@@ -87,10 +87,10 @@ class FmuVariable:
     group: str              # U, Y, XHAT, SIGMA, USABLE, OUTSIDE, START, PAR
 
 
-def _centre(schedule: GainSchedule) -> int:
-    from linobs.estimator.nonlinear import centre_node_index
+def _center(schedule: GainSchedule) -> int:
+    from linobs.estimator.nonlinear import center_node_index
 
-    return centre_node_index(schedule.data)
+    return center_node_index(schedule.data)
 
 
 def estimator_variables(schedule: GainSchedule,
@@ -103,22 +103,22 @@ def estimator_variables(schedule: GainSchedule,
         ``initial_estimate`` names a non-state or holds a non-finite value, or
         two variables would share a name.
     """
-    centre = schedule.data.nodes[_centre(schedule)]
+    center = schedule.data.nodes[_center(schedule)]
     given = dict(initial_estimate or {})
     unknown = [k for k in given if k not in schedule.states]
     if unknown:
         raise UsageError(f"the initial estimate names {', '.join(unknown)}, which the estimator "
                          f"does not estimate ({', '.join(schedule.states)})")
-    start = {s: float(given.get(s, x)) for s, x in zip(schedule.states, centre.x0)}
+    start = {s: float(given.get(s, x)) for s, x in zip(schedule.states, center.x0)}
     bad = [k for k, v in start.items() if not math.isfinite(v)]
     if bad:
         raise UsageError(f"the initial estimate of {', '.join(bad)} is not finite; give numbers")
-    point = schedule.node_point(_centre(schedule))
+    point = schedule.node_point(_center(schedule))
     rows: list[tuple[str, str, str, str, float | None, str]] = []
     rows += [(u, "input", "continuous", "plant input (as measured), held over a communication "
-              "step", float(v), "U") for u, v in zip(schedule.inputs, centre.u0)]
+              "step", float(v), "U") for u, v in zip(schedule.inputs, center.u0)]
     rows += [(y, "input", "continuous", "measured plant output", float(v), "Y")
-             for y, v in zip(schedule.outputs, centre.y0)]
+             for y, v in zip(schedule.outputs, center.y0)]
     rows += [(f"{s}_hat", "output", "continuous", f"estimate of {s}", None, "XHAT")
              for s in schedule.states]
     if schedule.kind == "kalman":
@@ -254,7 +254,7 @@ def build_estimator_fmu(schedule: GainSchedule, output: str | Path, *, model_nam
         The safety caution, put in the description and at the top of every source file.
     initial_estimate : mapping, optional
         State -> initial estimate (the start of ``<state>_hat_start``); missing
-        states take the x0 of the usable node nearest the grid's centre.
+        states take the x0 of the usable node nearest the grid's center.
     header_note : str
         Where the schedule comes from (source FMU identity, table checksum).
     compiler : str, optional

@@ -20,7 +20,7 @@ import numpy as np
 
 from linobs.linear.schemes import (AVOID, EPS, SCHEME_TEXT, SCHEMES, Scheme, fits, step_sizes,
                                    truncation)
-from linobs.linear.sparsity import colour_columns
+from linobs.linear.sparsity import color_columns
 
 if TYPE_CHECKING:  # pragma: no cover
     from linobs.model.instance import Model
@@ -94,7 +94,7 @@ class Differencing:
             if name == "skipped":
                 continue
             cols = [j for j in range(ncols) if scheme_of[j] == name]
-            for sub in colour_columns(pattern[:, cols]):
+            for sub in color_columns(pattern[:, cols]):
                 members = [cols[g] for g in sub]
                 groups.extend(self._evaluate_group(members, SCHEMES[name], h, pattern))
         self._check_empty_columns(pattern, h)
@@ -254,7 +254,7 @@ class Differencing:
         """Size of the terms that make up each row: |F0| + Σ_j |∂F/∂v_j|·max(|v_j|, nominal_j).
 
         Rounding in the FMU is relative to its intermediate terms, not to the (possibly
-        cancelled) result, so this is the row's rounding scale.
+        canceled) result, so this is the row's rounding scale.
         """
         return np.abs(self.f0) + np.abs(D) @ np.maximum(np.abs(self.values), self.nominal)
 
@@ -288,7 +288,7 @@ class Differencing:
     def exact(self, pattern: np.ndarray
               ) -> tuple[np.ndarray, np.ndarray, list[str], int, np.ndarray]:
         ncols = len(self.columns)
-        groups = colour_columns(pattern & self.active[None, :])
+        groups = color_columns(pattern & self.active[None, :])
         empty = [j for j in range(ncols) if self.active[j] and not pattern[:, j].any()]
         seeds = np.zeros((len(groups) + (1 if empty else 0), ncols))
         for g, members in enumerate(groups):

@@ -83,7 +83,7 @@ class LinearModel(BaseModel):
     errors: JacobianErrors
     evaluations: int = Field(description="FMU evaluations of (dx, y) spent")
     directional_evaluations: int = 0
-    column_groups: int = Field(description="number of column groups (colours) perturbed")
+    column_groups: int = Field(description="number of column groups (colors) perturbed")
     used_structure: bool
     refined_columns: list[str] = Field(
         default_factory=list, description="columns repeated with an error-balancing smaller step")
@@ -110,14 +110,14 @@ class LinearModel(BaseModel):
                       outputs: list[str] | None = None) -> ObservabilityReport:
         """Observability of this local model: an ``ObservabilityReport``.
 
-        See :func:`linobs.observability.analysis.analyse`; ``settings`` is an
+        See :func:`linobs.observability.analysis.analyze`; ``settings`` is an
         ``ObservabilitySettings`` (default thresholds when None) and ``outputs``
         the measured outputs (default: every output).
         """
         # linear -> observability: imported lazily, never at module level
-        from linobs.observability.analysis import analyse
+        from linobs.observability.analysis import analyze
 
-        return analyse(self, settings, outputs=outputs)
+        return analyze(self, settings, outputs=outputs)
 
     def to_statespace(self) -> Any:
         """A python-control ``StateSpace`` (needs the optional ``control`` extra)."""

@@ -80,7 +80,7 @@ def truncation(scheme: Scheme, d: np.ndarray, d2: np.ndarray, h: float) -> np.nd
     varies on the scale of the nominal value (Dennis & Schnabel 1983, §5.4), so
     the allowance is ½√ε·|J|.  Second order: t·h²·|f3| with the third
     derivative estimated as f2²/f1 from the stencil's own second difference
-    (exact for exponential behaviour), never more than the first-order bound h·|f2|.
+    (exact for exponential behavior), never more than the first-order bound h·|f2|.
     """
     if scheme.curvature is None:
         return 0.5 * EPS ** 0.5 * np.abs(d)

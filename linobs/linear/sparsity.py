@@ -59,10 +59,10 @@ def structural_pattern(model: "Model") -> np.ndarray | None:
     return pattern
 
 
-def colour_columns(pattern: np.ndarray) -> list[list[int]]:
+def color_columns(pattern: np.ndarray) -> list[list[int]]:
     """Group columns so that no two columns in a group share a structurally non-zero row.
 
-    Greedy sequential colouring of the column-intersection graph in
+    Greedy sequential coloring of the column-intersection graph in
     largest-degree-first order (Coleman & Moré 1983); every group is then one
     perturbation.  Empty columns form no group (their Jacobian column is zero).
 
@@ -77,14 +77,14 @@ def colour_columns(pattern: np.ndarray) -> list[list[int]]:
     np.fill_diagonal(overlap, False)
     nonempty = [j for j in range(ncols) if pattern[:, j].any()]
     order = sorted(nonempty, key=lambda j: (-int(overlap[j].sum()), j))
-    colour = {}
+    color = {}
     for j in order:
-        taken = {colour[k] for k in np.flatnonzero(overlap[j]) if k in colour}
+        taken = {color[k] for k in np.flatnonzero(overlap[j]) if k in color}
         c = 0
         while c in taken:
             c += 1
-        colour[j] = c
+        color[j] = c
     groups: dict[int, list[int]] = {}
-    for j, c in colour.items():
+    for j, c in color.items():
         groups.setdefault(c, []).append(j)
     return [sorted(groups[c]) for c in sorted(groups)]

@@ -2,7 +2,7 @@
 
 linobs loads the FMU's shared library itself (fmpy is used for reading the
 model description, validation and simulation).  The bindings here are the
-*cold* path: instantiation, initialisation, event iteration, parameter
+*cold* path: instantiation, initialization, event iteration, parameter
 setting, directional derivatives and FMU state.  The hot path
 (:mod:`linobs.model.hotpath`) takes the raw function addresses from here;
 :mod:`linobs.model.fmi2` and :mod:`linobs.model.fmi3` hold the two versions.

@@ -1,7 +1,7 @@
 """A model-exchange instance of one FMU, owned by one :class:`Model` object.
 
 The :class:`Model` brings the instance to continuous-time mode, evaluates
-``(x, u) -> (dx, y)`` through the hot path, sets parameters (re-initialising
+``(x, u) -> (dx, y)`` through the hot path, sets parameters (re-initializing
 only when a ``fixed`` parameter really changes) and frees everything on
 :meth:`Model.close` (or at garbage collection).
 """
@@ -50,7 +50,7 @@ class Model:
     evaluations : int
         Number of model evaluations (one per point, batches count each point).
     initializations : int
-        How many times the instance was (re-)initialised.
+        How many times the instance was (re-)initialized.
     """
 
     def __init__(self, *, path: Path, sha256: str, description: Any, catalogue: Catalogue,
@@ -116,7 +116,7 @@ class Model:
             b.initialize(self.start_time)
             b.exit_initialization()
         except ModelError as exc:
-            raise InstantiationError(f"{self.model_name}: initialisation failed: {exc}") from None
+            raise InstantiationError(f"{self.model_name}: initialization failed: {exc}") from None
         cat = self.catalogue
         self._evaluator = Evaluator(b, self.nx, [v.value_reference for v in cat.inputs],
                                     [v.value_reference for v in cat.outputs], self.nz)
@@ -145,7 +145,7 @@ class Model:
                 b.set_integer(refs, [int(round(v)) for v in vals])
 
     def reinitialize(self) -> None:
-        """Reset the instance and initialise it again with the current parameter values."""
+        """Reset the instance and initialize it again with the current parameter values."""
         try:
             self._binding.reset()
             self._initialize(self._user_parameters)
@@ -178,11 +178,11 @@ class Model:
         return dict(self._parameters)
 
     def set_parameters(self, values: Mapping[str, float]) -> bool:
-        """Set parameters; returns True when the instance had to be re-initialised.
+        """Set parameters; returns True when the instance had to be re-initialized.
 
         Tunable parameters are set in event mode.  ``fixed`` parameters can
-        only change before initialisation, so a change to any of them resets
-        and re-initialises the instance; unchanged values cost nothing.
+        only change before initialization, so a change to any of them resets
+        and re-initializes the instance; unchanged values cost nothing.
         """
         changed: dict[str, float] = {}
         needs_reinit = False

@@ -145,7 +145,7 @@ def load_model(path: str | os.PathLike[str], *, instance_name: str | None = None
     logging_on
         Ask the FMU for debug logging (messages are kept in ``Model.log``).
     start_time
-        Time passed to initialisation.
+        Time passed to initialization.
 
     Returns
     -------
@@ -162,7 +162,7 @@ def load_model(path: str | os.PathLike[str], *, instance_name: str | None = None
             f"{path.name} offers {offered} only; linobs needs model exchange (FMI 2.0 or 3.0) to "
             f"evaluate derivatives at arbitrary points; ask the supplier for a model-exchange export")
     if caps.needs_execution_tool:
-        raise UnsupportedFMUError(f"{path.name} needs its modelling tool at run time "
+        raise UnsupportedFMUError(f"{path.name} needs its modeling tool at run time "
                                   f"(needsExecutionTool=true); linobs runs FMUs without any tool")
     identifier = md.modelExchange.modelIdentifier
     major = 3 if md.fmiVersion.startswith("3") else 2
@@ -231,6 +231,6 @@ def _instantiation_problem(path: Path, md: Any, library_path: Path, log: str) ->
             f"{_DESCRIPTION}, so the description and the binary come from different exports; "
             f"re-export the FMU" + (f" (FMU log: {log})" if log else ""))
     if log:
-        return InstantiationError(f"{path.name}: the FMU refused to instantiate or initialise: {log}")
+        return InstantiationError(f"{path.name}: the FMU refused to instantiate or initialize: {log}")
     return InstantiationError(f"{path.name}: the FMU refused to instantiate (it logged nothing); "
                               f"try `linobs describe {path.name}` and ask the supplier")

@@ -26,7 +26,7 @@ import numpy as np
 
 from linobs.observability.assessment import SampledFacts, StateFacts, assess
 from linobs.observability.gramian import GramianKind, gramian_of
-from linobs.observability.pbh import Normalisation
+from linobs.observability.pbh import Normalization
 from linobs.observability.report import VERDICTS, SensorAdvice, Verdict
 
 
@@ -42,7 +42,7 @@ def sensor_advice(facts: StateFacts, C: np.ndarray, candidates: Sequence[Candida
                   verdict: Verdict, weak_threshold: float, gramian: np.ndarray,
                   gramian_kind: GramianKind, horizon: float | None,
                   sampled: SampledFacts | None = None,
-                  normalisation: Normalisation = "sum") -> list[SensorAdvice]:
+                  normalization: Normalization = "sum") -> list[SensorAdvice]:
     """Grade every single addition of a candidate to the measured outputs.
 
     Parameters
@@ -54,7 +54,7 @@ def sensor_advice(facts: StateFacts, C: np.ndarray, candidates: Sequence[Candida
     weak_threshold : as for the point
     gramian, gramian_kind, horizon : the point's Gramian and how it was computed
     sampled : the sampled pair, when a sample time is set
-    normalisation : of the PBH margins, as for the point
+    normalization : of the PBH margins, as for the point
 
     Returns
     -------
@@ -63,7 +63,7 @@ def sensor_advice(facts: StateFacts, C: np.ndarray, candidates: Sequence[Candida
     advice: list[SensorAdvice] = []
     for cand in candidates:
         row = np.asarray(cand.row, dtype=float).reshape(1, -1)
-        result = assess(facts, np.vstack([C, row]), weak_threshold, sampled, normalisation)
+        result = assess(facts, np.vstack([C, row]), weak_threshold, sampled, normalization)
         W = gramian + gramian_of(facts.A, row, gramian_kind, horizon)
         with np.errstate(invalid="ignore"):
             low = float(np.linalg.eigvalsh(W)[0]) if np.all(np.isfinite(W)) else float("nan")

@@ -1,7 +1,7 @@
 """Observability of one local linear model: the verdict an engineer can trust, and why.
 
-:func:`analyse` (for a :class:`~linobs.linear.linear_model.LinearModel`) and
-:func:`analyse_matrices` (for plain arrays) scale the pair by the nominal
+:func:`analyze` (for a :class:`~linobs.linear.linear_model.LinearModel`) and
+:func:`analyze_matrices` (for plain arrays) scale the pair by the nominal
 values (:mod:`~linobs.observability.scaling`), then on (Ã, C̃):
 
 1. one eigen-decomposition of Ã (shared by every output set tried);
@@ -60,7 +60,7 @@ from linobs.observability.directions import (
 )
 from linobs.observability.gramian import gramian_info, observability_gramian
 from linobs.observability.observability_matrix import observability_matrix_info
-from linobs.observability.pbh import Normalisation
+from linobs.observability.pbh import Normalization
 from linobs.observability.report import (
     Mode,
     ObservabilityReport,
@@ -124,12 +124,12 @@ def _candidates(requested: Sequence[str], state_names: list[str], output_names: 
     return found
 
 
-def analyse_matrices(A: np.ndarray, C: np.ndarray, state_names: Sequence[str],
+def analyze_matrices(A: np.ndarray, C: np.ndarray, state_names: Sequence[str],
                      output_names: Sequence[str], state_nominal: np.ndarray | None = None,
                      output_nominal: np.ndarray | None = None,
                      settings: ObservabilitySettings | None = None, *,
                      outputs: Sequence[str] | None = None,
-                     margin_normalization: Normalisation | None = None) -> ObservabilityReport:
+                     margin_normalization: Normalization | None = None) -> ObservabilityReport:
     """Observability of dx/dt = A x, y = C x with named variables (see the module notes).
 
     Parameters
@@ -141,7 +141,7 @@ def analyse_matrices(A: np.ndarray, C: np.ndarray, state_names: Sequence[str],
     settings : thresholds and options (default :class:`ObservabilitySettings`)
     outputs : measured outputs (default ``settings.outputs``, else all rows)
     margin_normalization : "balanced" (each block row by its own norm: time-unit free, see
-        :func:`~linobs.observability.pbh.normalised_pair`) or "sum" (by ‖A‖ + ‖C‖); default
+        :func:`~linobs.observability.pbh.normalized_pair`) or "sum" (by ‖A‖ + ‖C‖); default
         ``settings.margin_normalization``
 
     Returns
@@ -212,9 +212,9 @@ def analyse_matrices(A: np.ndarray, C: np.ndarray, state_names: Sequence[str],
         sensor_advice=advice, summary=summary)
 
 
-def analyse(lm: LinearModel, settings: ObservabilitySettings | None = None, *,
+def analyze(lm: LinearModel, settings: ObservabilitySettings | None = None, *,
             outputs: list[str] | None = None,
-            margin_normalization: Normalisation | None = None) -> ObservabilityReport:
+            margin_normalization: Normalization | None = None) -> ObservabilityReport:
     """Observability of a local linear model with its measured outputs.
 
     Parameters
@@ -223,12 +223,12 @@ def analyse(lm: LinearModel, settings: ObservabilitySettings | None = None, *,
     settings : thresholds and options (default :class:`ObservabilitySettings`)
     outputs : measured outputs (default ``settings.outputs``, else every output of ``lm``);
         the other declared outputs are sensor candidates
-    margin_normalization : as for :func:`analyse_matrices`
+    margin_normalization : as for :func:`analyze_matrices`
 
     Returns
     -------
     ObservabilityReport
     """
-    return analyse_matrices(lm.A, lm.C, lm.states, lm.outputs, lm.state_nominal,
+    return analyze_matrices(lm.A, lm.C, lm.states, lm.outputs, lm.state_nominal,
                             lm.output_nominal, settings, outputs=outputs,
                             margin_normalization=margin_normalization)

@@ -51,8 +51,8 @@ import scipy.optimize
 
 from linobs.observability.directions import orthonormal_span
 from linobs.observability.pbh import (
-    Normalisation,
-    normalised_pair,
+    Normalization,
+    normalized_pair,
     pbh_margins,
     pbh_null_vectors,
 )
@@ -160,7 +160,7 @@ def _match(targets: np.ndarray, eigenvalues: np.ndarray) -> np.ndarray:
 
 def assess(facts: StateFacts, C: np.ndarray, weak_threshold: float,
            sampled: SampledFacts | None = None,
-           normalisation: Normalisation = "sum") -> Assessment:
+           normalization: Normalization = "sum") -> Assessment:
     """Margins, unobservable subspace, detectability and verdict of (Ã, C̃).
 
     Parameters
@@ -169,7 +169,7 @@ def assess(facts: StateFacts, C: np.ndarray, weak_threshold: float,
     C : (p, n) scaled output matrix
     weak_threshold : relative margin below which an observable pair is weak
     sampled : from :func:`sampled_facts` when a sample time is set
-    normalisation : of the PBH margins (see :func:`~linobs.observability.pbh.normalised_pair`)
+    normalization : of the PBH margins (see :func:`~linobs.observability.pbh.normalized_pair`)
 
     Returns
     -------
@@ -178,15 +178,15 @@ def assess(facts: StateFacts, C: np.ndarray, weak_threshold: float,
     n = facts.A.shape[0]
     C = np.asarray(C, dtype=float).reshape(-1, n)
     # PBH and staircase work on (A_t, C_t) = (Ã/scale, C̃ or C̃/‖C̃‖): same subspaces
-    A, C_t, scale, normaliser = normalised_pair(facts.A, C, normalisation, facts.norm)
+    A, C_t, scale, normalizer = normalized_pair(facts.A, C, normalization, facts.norm)
     lam = facts.eigenvalues / scale
     tol = facts.tolerance
-    margins = pbh_margins(A, C_t, lam, normaliser)
+    margins = pbh_margins(A, C_t, lam, normalizer)
     vectors = facts.eigenvectors
     lengths = np.linalg.norm(vectors, axis=0)
     visibility = np.linalg.norm(C_t @ vectors, axis=0) / np.where(lengths > 0, lengths, 1.0) \
-        / normaliser if C.size else np.zeros(n)
-    stair = observability_staircase(A, C_t, tol * normaliser)
+        / normalizer if C.size else np.zeros(n)
+    stair = observability_staircase(A, C_t, tol * normalizer)
     flagged = margins < tol
     basis = stair.unobservable_basis
     unobs_eigs = np.linalg.eigvals(stair.unobservable_matrix) if stair.unobservable_dimension \
@@ -197,14 +197,14 @@ def assess(facts: StateFacts, C: np.ndarray, weak_threshold: float,
         # margin is taken at the staircase's eigenvalue as well (only where it matters)
         recheck = margins[matched] >= tol
         if np.any(recheck):
-            again = pbh_margins(A, C_t, unobs_eigs[recheck], normaliser)
+            again = pbh_margins(A, C_t, unobs_eigs[recheck], normalizer)
             margins[matched[recheck]] = np.minimum(margins[matched[recheck]], again)
         flagged[matched] = True
         extra = np.setdiff1d(np.flatnonzero(margins < tol), matched)
     else:
         extra = np.flatnonzero(flagged)
     if extra.size:  # PBH sees unobservable modes outside the staircase's subspace
-        candidates = orthonormal_span(pbh_null_vectors(A, C_t, lam[extra], tol * normaliser),
+        candidates = orthonormal_span(pbh_null_vectors(A, C_t, lam[extra], tol * normalizer),
                                       NEW_DIRECTION)
         if basis.shape[1] and candidates.shape[1]:
             candidates = candidates - basis @ (basis.T @ candidates)
@@ -225,7 +225,7 @@ def assess(facts: StateFacts, C: np.ndarray, weak_threshold: float,
     s_margins: np.ndarray | None = None
     s_verdict: Verdict | None = None
     if sampled is not None and n:
-        s_margins = sampled_margins(C, sampled.delta, sampled.values, normalisation,
+        s_margins = sampled_margins(C, sampled.delta, sampled.values, normalization,
                                     sampled.sample_time)
         s_flag = s_margins < tol
         s_verdict = _grade(float(np.min(s_margins)),

@@ -1,6 +1,6 @@
 """Vectors in scaled state space as named state participations.
 
-Every vector is normalised to unit 2-norm before it is named.  To keep a
+Every vector is normalized to unit 2-norm before it is named.  To keep a
 report small enough to store for thousands of operating points, components
 with magnitude below :data:`SMALL_COMPONENT` (of the unit vector) are left
 out and at most :data:`MAX_COMPONENTS` are kept, largest first; the largest
@@ -9,7 +9,7 @@ component is always kept.
 An orthonormal basis of a subspace is not unique; :func:`canonical_basis`
 picks the one that is easiest to read: its first vector is the projection
 onto the subspace of the state that lies most in it, the next one the
-projection of the next such state orthogonalised against the first, and so
+projection of the next such state orthogonalized against the first, and so
 on (QR with column pivoting of the basis transpose).
 
 References
@@ -46,7 +46,7 @@ def participation(vector: np.ndarray, names: Sequence[str]) -> dict[str, float]:
 
 
 def participations(vectors: np.ndarray, names: Sequence[str]) -> list[dict[str, float]]:
-    """:func:`participation` of every column of ``vectors`` (one vectorised pass)."""
+    """:func:`participation` of every column of ``vectors`` (one vectorized pass)."""
     mags = np.abs(np.asarray(vectors))
     if mags.size == 0:
         return [{} for _ in range(mags.shape[1] if mags.ndim == 2 else 0)]

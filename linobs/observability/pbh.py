@@ -12,7 +12,7 @@ to unobservability of that mode, independent of any rank tolerance.  The
 minimum over all λ ∈ ℂ is the distance to unobservability; the minimum over
 the eigenvalues is its usual, cheaper, upper bound.
 
-Normalisation.  ``"sum"`` (the default) is the formula above.  It adds a
+Normalization.  ``"sum"`` (the default) is the formula above.  It adds a
 rate (‖A‖, 1/time) to a ratio (‖C‖ of the scaled system), so it depends on
 the time unit: a model in hours instead of seconds has a 3600× larger A and
 other margins.  ``"balanced"`` removes that dependence by dividing each
@@ -43,34 +43,34 @@ from typing import Literal
 
 import numpy as np
 
-Normalisation = Literal["sum", "balanced"]
+Normalization = Literal["sum", "balanced"]
 
 
-def pbh_normaliser(A: np.ndarray, C: np.ndarray) -> float:
+def pbh_normalizer(A: np.ndarray, C: np.ndarray) -> float:
     """‖A‖₂ + ‖C‖₂, the scale margins are relative to (1 if both are zero)."""
     total = float(np.linalg.norm(A, 2) if A.size else 0.0)
     total += float(np.linalg.norm(C, 2) if C.size else 0.0)
     return total if total > 0.0 else 1.0
 
 
-def normalised_pair(A: np.ndarray, C: np.ndarray, normalisation: Normalisation = "sum",
+def normalized_pair(A: np.ndarray, C: np.ndarray, normalization: Normalization = "sum",
                     norm_a: float | None = None) -> tuple[np.ndarray, np.ndarray, float, float]:
-    """The pair the margins are computed on, its time scale and its normaliser.
+    """The pair the margins are computed on, its time scale and its normalizer.
 
     Returns
     -------
-    (A_t, C_t, scale, normaliser)
+    (A_t, C_t, scale, normalizer)
         A_t = A / scale, C_t (C, or C/‖C‖₂ when balanced); eigenvalues are
-        divided by ``scale`` before testing; margins are σ_min / normaliser
-        with normaliser = ‖A_t‖₂ + ‖C_t‖₂ (1 if both vanish).
+        divided by ``scale`` before testing; margins are σ_min / normalizer
+        with normalizer = ‖A_t‖₂ + ‖C_t‖₂ (1 if both vanish).
     """
     na = float(np.linalg.norm(A, 2)) if norm_a is None else float(norm_a)
     nc = float(np.linalg.norm(C, 2)) if C.size else 0.0
-    if normalisation == "sum":
+    if normalization == "sum":
         total = na + nc
         return A, C, 1.0, total if total > 0 else 1.0
-    if normalisation != "balanced":
-        raise ValueError(f"unknown normalisation {normalisation!r}")
+    if normalization != "balanced":
+        raise ValueError(f"unknown normalization {normalization!r}")
     scale = na if na > 0 else 1.0
     cs = nc if nc > 0 else 1.0
     total = (1.0 if na > 0 else 0.0) + (1.0 if nc > 0 else 0.0)
@@ -118,7 +118,7 @@ def smallest_singular_values(A: np.ndarray, C: np.ndarray, values: np.ndarray) -
 
 
 def pbh_margins(A: np.ndarray, C: np.ndarray, eigenvalues: np.ndarray,
-                normaliser: float | None = None) -> np.ndarray:
+                normalizer: float | None = None) -> np.ndarray:
     """Relative PBH margin of every eigenvalue (see the module notes).
 
     Parameters
@@ -126,13 +126,13 @@ def pbh_margins(A: np.ndarray, C: np.ndarray, eigenvalues: np.ndarray,
     A : (n, n) array
     C : (p, n) array
     eigenvalues : (k,) array, the eigenvalues of A to test
-    normaliser : ‖A‖₂ + ‖C‖₂ if already known
+    normalizer : ‖A‖₂ + ‖C‖₂ if already known
 
     Returns
     -------
     (k,) array of margins in [0, 1].
     """
-    scale = pbh_normaliser(A, C) if normaliser is None else normaliser
+    scale = pbh_normalizer(A, C) if normalizer is None else normalizer
     return smallest_singular_values(A, C, eigenvalues) / scale
 
 

@@ -4,7 +4,7 @@ The affine local model (see :mod:`linobs.linear.linear_model`)
 
     dx/dt = A (x − x0) + B (u − u0) + dx0,   y = y0 + C (x − x0) + D (u − u0)
 
-is discretised exactly for inputs held between samples (zero-order hold):
+is discretized exactly for inputs held between samples (zero-order hold):
 with δx = x − x0, δu = u − u0 and the constant dx0 treated as one more
 held input,
 

@@ -1,7 +1,7 @@
 """Regions of the envelope where observability is lost or weak, in plain words.
 
 Points of the grid with the same non-observable verdict and the same weakest
-state are joined into connected regions (grid neighbours); each region is
+state are joined into connected regions (grid neighbors); each region is
 described by the range it covers on every axis, the weakest mode and the
 states involved, the smallest margin, and the refined boundary points next to
 it.
@@ -23,7 +23,7 @@ _WORDS = {"weak": "weakly observable", "unobservable-detectable": "unobservable 
 
 
 class PointVerdict(BaseModel):
-    """What the region finder needs of one analysed point."""
+    """What the region finder needs of one analyzed point."""
 
     verdict: str
     margin: float
@@ -70,7 +70,7 @@ def _components(grid: "Grid", members: set[int]) -> list[list[int]]:
         while stack:
             i = stack.pop()
             comp.append(i)
-            for j in grid.neighbours(i):
+            for j in grid.neighbors(i):
                 if j in members and j not in seen:
                     seen.add(j)
                     stack.append(j)

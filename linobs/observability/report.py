@@ -97,7 +97,7 @@ class Mode(_Result):
     stable: bool = Field(description="Re λ < 0 (beyond the rounding level)")
     participation: dict[str, float] = Field(
         description="|component| of the (scaled) right eigenvector per state, largest first, "
-                    "normalised to 1")
+                    "normalized to 1")
 
     def label(self) -> str:
         lam = f"{self.real:.3g}" + (f"{self.imag:+.3g}j" if self.imag else "")

@@ -44,7 +44,7 @@ from __future__ import annotations
 import numpy as np
 import scipy.linalg
 
-from linobs.observability.pbh import Normalisation, normalised_pair, pbh_margins
+from linobs.observability.pbh import Normalization, normalized_pair, pbh_margins
 
 PAIR_TOLERANCE = float(np.sqrt(np.finfo(float).eps))
 """Relative tolerance of the pathological-pair test (see the module notes)."""
@@ -107,7 +107,7 @@ def delta_form(A: np.ndarray, eigenvalues: np.ndarray,
 
 
 def sampled_margins(C: np.ndarray, delta: np.ndarray, nu: np.ndarray,
-                    normalisation: Normalisation = "sum",
+                    normalization: Normalization = "sum",
                     sample_time: float | None = None) -> np.ndarray:
     """Relative PBH margin of every sampled mode, in delta form (see the module notes).
 
@@ -115,8 +115,8 @@ def sampled_margins(C: np.ndarray, delta: np.ndarray, nu: np.ndarray,
     ----------
     C : (p, n) scaled output matrix
     delta, nu : from :func:`delta_form`
-    normalisation : as for the continuous margins (:func:`~linobs.observability.pbh.normalised_pair`)
-    sample_time : Ts; with the balanced normalisation, a δ whose change over one sample,
+    normalization : as for the continuous margins (:func:`~linobs.observability.pbh.normalized_pair`)
+    sample_time : Ts; with the balanced normalization, a δ whose change over one sample,
         ‖Φ − I‖ = Ts‖δ‖, is at the rounding level of Φ counts as zero (Φ = I: the samples
         cannot tell the modes apart, and δ's rounding noise must not be scaled up to 1)
 
@@ -125,11 +125,11 @@ def sampled_margins(C: np.ndarray, delta: np.ndarray, nu: np.ndarray,
     (n,) array of margins
     """
     norm_a = None
-    if normalisation == "balanced" and sample_time is not None and delta.size:
+    if normalization == "balanced" and sample_time is not None and delta.size:
         n = delta.shape[0]
         change = sample_time * float(np.linalg.norm(delta, 2))
         phi = float(np.linalg.norm(np.eye(n) + sample_time * delta, 2))
         if change <= 100.0 * n * EPS * max(1.0, phi):
             norm_a = 0.0
-    d_t, c_t, scale, normaliser = normalised_pair(delta, C, normalisation, norm_a)
-    return pbh_margins(d_t, c_t, nu / scale, normaliser)
+    d_t, c_t, scale, normalizer = normalized_pair(delta, C, normalization, norm_a)
+    return pbh_margins(d_t, c_t, nu / scale, normalizer)

@@ -9,7 +9,7 @@ scaled variables x̃ = S_x⁻¹ x and ỹ = S_y⁻¹ y obey
 is a change of one nominal value, so singular values and margins compare
 like with like.  A nominal that is zero, negative or not finite cannot
 scale anything: its magnitude is used when it is positive and finite, and 1
-otherwise (the variable is then analysed in its own units).
+otherwise (the variable is then analyzed in its own units).
 
 References
 ----------

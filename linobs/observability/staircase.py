@@ -52,7 +52,7 @@ import scipy.linalg
 
 
 class Staircase(NamedTuple):
-    """Result of :func:`observability_staircase` (arrays on the analysed, scaled system)."""
+    """Result of :func:`observability_staircase` (arrays on the analyzed, scaled system)."""
 
     transform: np.ndarray
     """Z (n×n orthogonal): observable directions first, unobservable last."""

@@ -1,4 +1,4 @@
-"""Warm starts along a path of neighbouring trims: the last solutions and Newton matrix.
+"""Warm starts along a path of neighboring trims: the last solutions and Newton matrix.
 
 A sweep that visits grid points in serpentine order solves a sequence of
 nearby problems.  :class:`Continuation` carries from one to the next
@@ -32,7 +32,7 @@ HISTORY = 64
 
 
 class Continuation:
-    """Warm-start state carried from one trim to the next along a path of neighbouring points.
+    """Warm-start state carried from one trim to the next along a path of neighboring points.
 
     The caller owns it (one per path, e.g. per serpentine walk of a grid
     chunk); :func:`linobs.operating.trim.find_operating_point` asks it for a guess and, after
@@ -64,7 +64,7 @@ class Continuation:
 
         An affine fit z ≈ a + G·(f − f_new) through the nearest solved points
         (distances scaled by the spread of each fixed value), evaluated at the
-        new point: linear extrapolation from the solved neighbours, which on a
+        new point: linear extrapolation from the solved neighbors, which on a
         straight run of a serpentine walk is the secant predictor and after a
         turn also uses the row solved before.  With one solved point, that point.
         """

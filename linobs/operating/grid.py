@@ -2,8 +2,8 @@
 
 A grid names the variables it sets (states held fixed, inputs, parameters)
 and holds one row of values per operating point.  Besides the points it
-offers what a sweep needs: the neighbours of a point (where to take a warm
-start from), a visiting order in which consecutive points are neighbours
+offers what a sweep needs: the neighbors of a point (where to take a warm
+start from), a visiting order in which consecutive points are neighbors
 (continuation), and contiguous chunks of that order for the workers.
 
 Everything here is plain numpy; the grid knows nothing of models or files
@@ -234,8 +234,8 @@ class Grid:
         lo, hi = self.points.min(axis=0), self.points.max(axis=0)
         return {n: (float(a), float(b)) for n, a, b in zip(self.names, lo, hi)}
 
-    # -------------------------------------------------------------- neighbours
-    def neighbours(self, i: int) -> list[int]:
+    # -------------------------------------------------------------- neighbors
+    def neighbors(self, i: int) -> list[int]:
         """Points next to ``i``.
 
         Tensor: one step back and forth along each axis (where it exists), in
@@ -272,14 +272,14 @@ class Grid:
         return columns
 
     def continuation_order(self, slow: Sequence[str] = ()) -> list[int]:
-        """Every point number once, ordered so that consecutive points are neighbours.
+        """Every point number once, ordered so that consecutive points are neighbors.
 
         Tensor grids are walked in boustrophedon order (see
         :func:`serpentine_digits`): every step changes one axis index by one.
         Scattered grids are walked greedily, always to the nearest point not
         yet visited (scaled coordinates), starting from the point nearest the
         lower corner of the envelope.  The variables named in ``slow`` (fixed
-        parameters, whose change forces the model to re-initialise) vary
+        parameters, whose change forces the model to re-initialize) vary
         slowest, so every group of equal slow values is contiguous.
 
         References
@@ -288,7 +288,7 @@ class Grid:
         Introduction*, Springer (warm-starting each solve from its predecessor).
         D. J. Rosenkrantz, R. E. Stearns and P. M. Lewis (1977), "An analysis of
         several heuristics for the traveling salesman problem", SIAM Journal on
-        Computing 6(3):563-581 (the nearest-neighbour tour).
+        Computing 6(3):563-581 (the nearest-neighbor tour).
         """
         cols = self._slow_columns(slow)
         if self.kind == "tensor":

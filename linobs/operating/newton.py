@@ -151,7 +151,7 @@ def solve_newton_broyden(residual: Residual, jacobian: Jacobian, z0: np.ndarray,
         Jacobian (else D = I: the line search works on ½‖r‖² itself).
     matrix
         (B, D): a Jacobian approximation and merit weights to start from (e.g.
-        the final matrix of a neighbouring solve); it is treated as an updated
+        the final matrix of a neighboring solve); it is treated as an updated
         matrix, i.e. refreshed when its line search fails.
 
     References

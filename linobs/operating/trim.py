@@ -89,7 +89,7 @@ def find_operating_point(model: "Model", fixed: Mapping[str, float], spec: TrimS
         Newton needs a good Jacobian, not an accurate one, and forward
         differences cost half the evaluations (Dennis & Schnabel 1983, §5.4).
     continuation
-        Warm-start state from the previous (neighbouring) trims: its
+        Warm-start state from the previous (neighboring) trims: its
         prediction (the last solution, extrapolated along the path when the
         last two steps line up) serves as the guess when ``guess`` is None,
         and its final Newton matrix replaces the first fresh Jacobian (when

@@ -40,7 +40,7 @@ class TrimSpec(BaseModel):
     max_iterations: int = Field(50, ge=1, le=10_000)
     broyden_updates: int = Field(
         8, ge=0, le=100, description="Broyden (sparse, Schubert) updates allowed between Jacobian refreshes")
-    continuation: bool = Field(True, description="warm start from the nearest solved neighbour")
+    continuation: bool = Field(True, description="warm start from the nearest solved neighbor")
     fallback: Literal["none", "simulate"] = Field(
         "none", description="when Newton fails: settle the model by simulation to steady state")
     settle_time: float | None = Field(

@@ -133,7 +133,7 @@ def print_run_summary(console: Console, summary: Any, run_dir: Any) -> None:
             console.print(f"  - {escape(line)}")
     if summary.design_ok is not None:
         console.print(f"  design: {summary.design_ok} nodes designed, {summary.design_refused} "
-                      f"refused; {summary.continuity_flags} neighbouring gain jumps flagged")
+                      f"refused; {summary.continuity_flags} neighboring gain jumps flagged")
     if summary.validation_frozen_passed is not None:
         worst = summary.validation_worst_decay_reserve
         console.print(f"  frozen-point validation: {summary.validation_frozen_passed} passed, "

@@ -3,8 +3,8 @@
 Drawn like the observability figures (:mod:`linobs.report.figures`): bare
 :class:`~matplotlib.figure.Figure` objects, no pyplot, written as PNG and
 deterministic SVG (no date, fixed id salt, text as text), each file
-atomically.  Colours come from *viridis*; estimators are told apart by line
-style as well as colour, failed points by marker shape and hatching.
+atomically.  Colors come from *viridis*; estimators are told apart by line
+style as well as color, failed points by marker shape and hatching.
 
 * :func:`state_estimates` — one panel per state: the true state (black), each
   estimator's estimate (the schedule, the fixed gain, ...) and, for a Kalman
@@ -15,7 +15,7 @@ style as well as colour, failed points by marker shape and hatching.
   are both readable).
 * :func:`frozen_decay_reserve_map` — the frozen-point decay reserve (how
   much faster than required the estimation error decays) over two
-  scheduling axes (one axis: the reserve against that axis): colour =
+  scheduling axes (one axis: the reserve against that axis): color =
   decay reserve, crosses =
   points that fail, hatched = no result; other axes are reduced to their
   worst case (tensor point sets) or projected (scattered points), with the
@@ -80,21 +80,21 @@ def state_estimates_figure(runs: Sequence[EstimatorRun], *, band: float = 3.0, t
     handles: list[object] = [Line2D([], [], color="black", linewidth=1.4, label="truth")]
     for k, (ax, name) in enumerate(zip(axes, first.state_names)):
         for r, run in enumerate(runs):
-            colour, style = _style(r)
+            color, style = _style(r)
             if run.sigma is not None:
                 lo = run.estimates[idx, k] - band * run.sigma[idx, k]
                 hi = run.estimates[idx, k] + band * run.sigma[idx, k]
-                ax.fill_between(t[idx], lo, hi, color=colour, alpha=0.18, linewidth=0,
+                ax.fill_between(t[idx], lo, hi, color=color, alpha=0.18, linewidth=0,
                                 gid=f"band-{r}-{name}")
-            ax.plot(t[idx], run.estimates[idx, k], color=colour, linestyle=style, linewidth=1.1,
+            ax.plot(t[idx], run.estimates[idx, k], color=color, linestyle=style, linewidth=1.1,
                     gid=f"estimate-{r}-{name}")
         ax.plot(t[idx], first.truth[idx, k], color="black", linewidth=1.4, gid=f"truth-{name}")
         ax.set_ylabel(axis_label(name, units))
         _tidy(ax)
     axes[-1].set_xlabel(t_label)
     for r, run in enumerate(runs):
-        colour, style = _style(r)
-        handles.append(Line2D([], [], color=colour, linestyle=style, label=run.label))
+        color, style = _style(r)
+        handles.append(Line2D([], [], color=color, linestyle=style, label=run.label))
     if any(run.sigma is not None for run in runs):
         handles.append(Patch(color=_style(0)[0], alpha=0.18, label=f"±{band:g}σ (Kalman)"))
     fig.legend(handles=handles, loc="outside lower center", ncols=min(4, len(handles)),
@@ -141,13 +141,13 @@ def estimation_errors_figure(runs: Sequence[EstimatorRun], *, band: float = 3.0,
     for k, (ax, name) in enumerate(zip(axes, first.state_names)):
         ax.axhline(0.0, color="0.55", linewidth=0.8)
         for r, run in enumerate(runs):
-            colour, style = _style(r)
+            color, style = _style(r)
             if run.sigma is not None:
                 env = band * run.sigma[idx, k]
                 for sign in (1, -1):
-                    ax.plot(t[idx], sign * env, color=colour, linestyle=":", linewidth=0.9,
+                    ax.plot(t[idx], sign * env, color=color, linestyle=":", linewidth=0.9,
                             gid=f"envelope-{r}-{name}")
-            ax.plot(t[idx], run.errors[idx, k], color=colour, linestyle=style, linewidth=1.0,
+            ax.plot(t[idx], run.errors[idx, k], color=color, linestyle=style, linewidth=1.0,
                     gid=f"error-{r}-{name}")
         threshold = _linear_part(runs, k, band)
         if threshold is not None:
@@ -157,8 +157,8 @@ def estimation_errors_figure(runs: Sequence[EstimatorRun], *, band: float = 3.0,
         _tidy(ax)
     axes[-1].set_xlabel(t_label)
     for r, run in enumerate(runs):
-        colour, style = _style(r)
-        handles.append(Line2D([], [], color=colour, linestyle=style,
+        color, style = _style(r)
+        handles.append(Line2D([], [], color=color, linestyle=style,
                               label=f"{run.label}: estimate − truth"))
     if any(run.sigma is not None for run in runs):
         handles.append(Line2D([], [], color="0.3", linestyle=":", label=f"±{band:g}σ"))

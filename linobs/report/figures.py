@@ -5,10 +5,10 @@ no display, no global backend switch) and written as PNG and SVG, each
 rendered in memory and then written atomically.  Output is deterministic:
 no date in the SVG metadata, a fixed SVG id salt, text kept as text.
 
-Colours come from the perceptually uniform *viridis* map (dark = small
+Colors come from the perceptually uniform *viridis* map (dark = small
 margin, bright = large), which stays ordered in grayscale and for the
-common colour-vision deficiencies; failed points are light grey with a
-hatch, and verdicts are told apart by marker shape, not by colour.
+common color-vision deficiencies; failed points are light gray with a
+hatch, and verdicts are told apart by marker shape, not by color.
 
 References
 ----------
@@ -139,7 +139,7 @@ def margin_map(points: np.ndarray, names: Sequence[str], margins: np.ndarray,
     boundary : sequence of mappings
         Refined boundary points (values of at least the two map axes).
     weak_threshold : float
-        Drawn as a contour line and on the colour bar.
+        Drawn as a contour line and on the color bar.
     out_stem : Path
         Files ``out_stem.png`` and ``out_stem.svg`` are written.
     title : str
@@ -179,12 +179,12 @@ def verdict_counts_figure(counts: Mapping[str, int], *, title: str = "") -> Figu
     labels = list(values) + [k.replace("_", " ") for k in extras]
     heights = list(values.values()) + list(extras.values())
     cmap = matplotlib.colormaps[CMAP]
-    colours = [cmap(_BAR_LEVEL[v]) for v in values] + [_FAILED_FACE] * len(extras)
+    colors = [cmap(_BAR_LEVEL[v]) for v in values] + [_FAILED_FACE] * len(extras)
     hatches = [_BAR_HATCH[v] for v in values] + [_FAILED_HATCH] * len(extras)
     fig = Figure(figsize=COUNTS_SIZE, dpi=DPI, layout="constrained")
     ax = fig.add_subplot()
     rows = np.arange(len(heights))
-    bars = ax.barh(rows, heights, color=colours, edgecolor="0.2", linewidth=0.8, hatch=hatches,
+    bars = ax.barh(rows, heights, color=colors, edgecolor="0.2", linewidth=0.8, hatch=hatches,
                    height=0.68, gid="verdict-bars")
     for bar, level in zip(bars, [_BAR_LEVEL[v] for v in values] + [1.0] * len(extras)):
         bar.set_hatchcolor("white" if level < 0.5 else "0.25")
@@ -192,7 +192,7 @@ def verdict_counts_figure(counts: Mapping[str, int], *, title: str = "") -> Figu
     ax.bar_label(bars, labels=[f"{h}" + (f"  ({h / total:.0%})" if total else "")
                                for h in heights], padding=3, fontsize=9)
     ax.set_yticks(rows, labels, fontsize=9)
-    ax.invert_yaxis()  # most favourable verdict on top
+    ax.invert_yaxis()  # most favorable verdict on top
     ax.set_xlabel("operating points")
     ax.xaxis.set_major_locator(MaxNLocator(integer=True))
     ax.set_xlim(0, max(heights + [1]) * 1.2)

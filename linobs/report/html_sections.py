@@ -31,7 +31,7 @@ def schedule_section(run: RunFolder) -> str:
         return _not_run(run, "No estimator was designed")
     out = [kv_table([("grid nodes with a design", s.design_ok or 0),
                      ("grid nodes refused", s.design_refused or 0),
-                     ("continuity flags (neighbouring gain jumps)", s.continuity_flags or 0)])]
+                     ("continuity flags (neighboring gain jumps)", s.continuity_flags or 0)])]
     first = next((n for n in run.schedule.nodes if n.status == "ok"), None) \
         if run.schedule is not None else None
     if first is not None:
@@ -48,7 +48,7 @@ def schedule_section(run: RunFolder) -> str:
                          numeric=(0,)) + _more(len(refused), "design/refused.json"))
     else:
         out.append("<p>No node was refused: every grid node has a design.</p>")
-    out.append("<h3>Continuity between neighbouring nodes</h3>")
+    out.append("<h3>Continuity between neighboring nodes</h3>")
     jumps = run.continuity
     if jumps:
         causes = Counter(str(j.get("cause")) for j in jumps)
@@ -57,14 +57,14 @@ def schedule_section(run: RunFolder) -> str:
                                               j.get("relative_change") is not None else 1e300))
         rows = [[*_step(j.get("values_a") or {}, j.get("values_b") or {}),
                  num(j.get("relative_change")) if j.get("relative_change") is not None
-                 else "refused neighbour", num(j.get("pole_shift")), num(j.get("model_change")),
+                 else "refused neighbor", num(j.get("pole_shift")), num(j.get("model_change")),
                  j.get("cause"), j.get("message")] for j in order[:MAX_JUMPS]]
         out.append(table(["where", "step", "relative gain change", "pole shift",
                           "model change", "likely cause", "message"], rows,
                          numeric=(2, 3, 4))
                    + _more(len(jumps), "design/continuity.json", shown=MAX_JUMPS))
     elif jumps is not None:
-        out.append("<p>No neighbouring gains jump by more than the continuity threshold.</p>")
+        out.append("<p>No neighboring gains jump by more than the continuity threshold.</p>")
     else:
         out.append('<p class="missing">No continuity check in the run folder.</p>')
     out.append(figure(run.figure("schedule_gains"), alt="gain maps",
@@ -116,7 +116,7 @@ def validation_section(run: RunFolder) -> str:
     out.append("<h3>Nonlinear plant</h3>")
     out.append(_nonlinear(run))
     if s.comparison:
-        out.append("<p>Schedule against the fixed gain designed at the envelope's centre:</p>"
+        out.append("<p>Schedule against the fixed gain designed at the envelope's center:</p>"
                    + items(s.comparison))
     out.append(figure(run.figure("validation_states"), alt="true and estimated states",
                       caption="True states of the nonlinear plant and the estimates of the "
@@ -228,7 +228,7 @@ def _not_run(run: RunFolder, what: str) -> str:
 
 
 def _step(a: dict[str, Any], b: dict[str, Any]) -> list[str]:
-    """The values two neighbours share, and the step between them (``x: 1 → 2``)."""
+    """The values two neighbors share, and the step between them (``x: 1 → 2``)."""
     same = {k: v for k, v in a.items() if b.get(k) == v}
     step = "; ".join(f"{k}: {num(v)} → {num(b.get(k))}" for k, v in a.items() if k not in same)
     return [point_text(same) or "—", step or "—"]

@@ -13,13 +13,13 @@ each file written atomically.
   (the first two unless chosen); every other axis is held at its middle grid
   value (or a given value, the nearest grid value), and the figure states the
   slice.  Values are written in the cells of small grids.  A gain that
-  changes sign in the slice is drawn on a diverging map centred at zero,
+  changes sign in the slice is drawn on a diverging map centered at zero,
   otherwise on *viridis*.
-* **Scattered points.**  The nodes as points on two axes coloured by the gain;
+* **Scattered points.**  The nodes as points on two axes colored by the gain;
   other axes are projected (every node is shown).
 * **One axis.**  The gain against the axis, one panel per entry.
-* **Refused nodes** (no design) are hatched light-grey cells, grey squares,
-  or dotted vertical lines on a one-axis plot — never a colour of the map.
+* **Refused nodes** (no design) are hatched light-gray cells, gray squares,
+  or dotted vertical lines on a one-axis plot — never a color of the map.
 
 References
 ----------
@@ -28,7 +28,7 @@ matplotlib (viridis). SciPy 2015 conference talk.
 
 Harrower, M. & Brewer, C. A. (2003). ColorBrewer.org: an online tool for
 selecting colour schemes for maps. The Cartographic Journal 40(1), 27-37
-(the diverging purple-orange scheme, safe for colour-vision deficiencies).
+(the diverging purple-orange scheme, safe for color-vision deficiencies).
 """
 
 from __future__ import annotations

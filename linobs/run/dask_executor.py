@@ -32,7 +32,7 @@ At most a window of ``2 x threads`` chunks is submitted at a time (enough
 to keep every worker busy, few enough that a crash strands little work).
 The executor closes its client and any cluster it started on :meth:`close`,
 on leaving a ``with`` block, also after errors and Ctrl-C; tasks in flight
-are cancelled first.
+are canceled first.
 """
 
 from __future__ import annotations

@@ -95,7 +95,7 @@ def run_chunk_on_worker(work: bytes, key: str, timeout: float | None) -> bytes:
 
     ``work`` comes from :func:`pack_work`; the results come back pickled too
     (a list of :class:`ItemResult`), which spares Dask from measuring and
-    serialising every nested item on both sides.
+    serializing every nested item on both sides.
     """
     task, chunk = pickle.loads(work)
     return pickle.dumps(_run(task, chunk, key, timeout), protocol=pickle.HIGHEST_PROTOCOL)

@@ -3,7 +3,7 @@
 A worker process (a local pool process or a Dask worker) keeps one
 :class:`ProcessWorkerContext`.  It loads each FMU once, on first use, and
 hands the same :class:`~linobs.model.instance.Model` to every later chunk,
-so an instantiation (unzip, ``dlopen``, instantiate, initialise) is paid once
+so an instantiation (unzip, ``dlopen``, instantiate, initialize) is paid once
 per process and FMU, not once per chunk.  Models are keyed by the FMU's
 SHA-256:
 
@@ -54,7 +54,7 @@ def single_threaded_blas() -> None:
     """Limit the linear-algebra library to one thread in this process.
 
     A worker is one core's share of a sweep, and its matrices are tiny: a
-    multi-threaded BLAS only adds synchronisation (and, when several workers
+    multi-threaded BLAS only adds synchronization (and, when several workers
     share the cores, oversubscription that slows small operations by an order
     of magnitude).  Common practice for process-parallel numerics.
     """

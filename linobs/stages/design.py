@@ -99,7 +99,7 @@ def build_schedule(study: "Study", store: "RunStore",
     """The gain schedule from the stored node designs (``nodes``: already read from the store).
 
     Grid points that have no local model at all get a refused copy of their
-    nearest designed neighbour's structure (never its gain), so the schedule's
+    nearest designed neighbor's structure (never its gain), so the schedule's
     arrays are complete and those cells are marked unusable.
     """
     from linobs.estimator.schedule import schedule_from_nodes

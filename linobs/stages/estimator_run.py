@@ -5,7 +5,7 @@ Files (all written atomically):
 ``RUN_DIR/design/schedule.json``
     The gain schedule (:class:`~linobs.estimator.schedule.ScheduleData`).
 ``RUN_DIR/design/continuity.json``
-    Neighbouring nodes whose gains jump.
+    Neighboring nodes whose gains jump.
 ``RUN_DIR/design/refused.json``
     The grid points without a design, each with its reason (and the modes no
     gain can move); when every point is refused there is no schedule and the
@@ -181,7 +181,7 @@ def _nonlinear(runner: "_Runner", schedule: "GainSchedule", run_dir: Path,
         fixed = fixed_gain_schedule(schedule)
         runs.append(run_estimator(fixed, plant, initial_estimate=x_start,
                                   noise_std=est.measurement_noise, seed=vs.seed,
-                                  parameters=params, label="fixed gain (envelope centre)"))
+                                  parameters=params, label="fixed gain (envelope center)"))
         reports["fixed_gain"] = assess_run(runs[1], vs)
         comparison = compare(reports["schedule"], reports["fixed_gain"])
     payload = {k: r.model_dump(mode="json") for k, r in reports.items()}

@@ -1,10 +1,10 @@
 """The ``observability`` stage: a verdict at every swept point, refined boundaries, a nonlinear check.
 
-1. **Verdicts.** Every point with a local model from the sweep is analysed
-   (:func:`linobs.observability.analysis.analyse`) in the coordinator — no
+1. **Verdicts.** Every point with a local model from the sweep is analyzed
+   (:func:`linobs.observability.analysis.analyze`) in the coordinator — no
    FMU is needed — and its report is stored; points without a local model
    are stored with the sweep's status.
-2. **Boundary refinement.** Where two neighbouring grid points get different
+2. **Boundary refinement.** Where two neighboring grid points get different
    verdicts, the segment between them is bisected with new trims and
    linearizations until it is shorter than ``boundary_tolerance`` of the
    axis span; the boundary point is stored.  This touches the FMU, so it runs
@@ -50,10 +50,10 @@ def settings_of(study: "Study") -> ObservabilitySettings:
 
 
 # ----------------------------------------------------------------------------- 1. verdicts
-def analyse_stored(study: "Study", store: "RunStore", *,
+def analyze_stored(study: "Study", store: "RunStore", *,
                    progress: Callable[[int, int], None] | None = None) -> int:
-    """Analyse every swept point not analysed yet; returns how many were analysed now."""
-    from linobs.observability.analysis import analyse
+    """Analyze every swept point not analyzed yet; returns how many were analyzed now."""
+    from linobs.observability.analysis import analyze
 
     settings = settings_of(study)
     done = store.done_ids(STAGE)
@@ -65,7 +65,7 @@ def analyse_stored(study: "Study", store: "RunStore", *,
         t0 = time.perf_counter()
         if r.status == "ok":
             try:
-                report = analyse(LinearModel.model_validate(r.data["linear"]), settings,
+                report = analyze(LinearModel.model_validate(r.data["linear"]), settings,
                                  outputs=settings.outputs)
                 data = report_record(report)
                 status, message = "ok", report.summary
@@ -94,11 +94,11 @@ def report_record(report: ObservabilityReport) -> dict[str, Any]:
 
 # --------------------------------------------------------------------- 2. boundary refinement
 def boundary_edges(study: "Study", verdicts: dict[int, str]) -> list[tuple[int, int]]:
-    """Pairs of neighbouring grid points (i < j) whose verdicts differ, both analysed."""
+    """Pairs of neighboring grid points (i < j) whose verdicts differ, both analyzed."""
     grid = study.grid
     edges = set()
     for i, v in verdicts.items():
-        for j in grid.neighbours(i):
+        for j in grid.neighbors(i):
             w = verdicts.get(j)
             if w is not None and w != v:
                 edges.add((min(i, j), max(i, j)))
@@ -110,8 +110,8 @@ def boundary_chunks(study: "Study", store: "RunStore", *, workers: int) -> tuple
     settings = settings_of(study)
     if not settings.refine_boundary:
         return [], 0
-    analysed = {r.item_id: r for r in store.results(STAGE) if r.status == "ok"}
-    verdicts = {i: r.data["verdict"] for i, r in analysed.items()}
+    analyzed = {r.item_id: r for r in store.results(STAGE) if r.status == "ok"}
+    verdicts = {i: r.data["verdict"] for i, r in analyzed.items()}
     sweep = {r.item_id: r for r in store.results("sweep") if r.status == "ok"}
     edges = boundary_edges(study, verdicts)
     done = store.done_ids(BOUNDARY)
@@ -139,16 +139,16 @@ def _point_on_segment(a: dict[str, float], b: dict[str, float], t: float) -> dic
 
 
 class _Evaluator:
-    """Trim + linearize + analyse at points of one segment, warm-started along it."""
+    """Trim + linearize + analyze at points of one segment, warm-started along it."""
 
     def __init__(self, model: Any, settings: dict[str, Any], start: dict[str, float]) -> None:
-        from linobs.observability.analysis import analyse
+        from linobs.observability.analysis import analyze
 
         self.model, self.s, self.start = model, settings, start
         self.spec = TrimSpec.model_validate(settings["trim"])
         self.obs = ObservabilitySettings.model_validate(settings["observability"])
         self.path = Continuation()
-        self.analyse = analyse
+        self.analyze = analyze
 
     def verdict(self, values: dict[str, float], guess: dict[str, float] | None
                 ) -> tuple[str, float, TrimResult]:
@@ -158,7 +158,7 @@ class _Evaluator:
         if not tr.converged:
             raise LinobsError(f"trim did not converge at {values}: {tr.message}")
         lm = linearize(self.model, tr.point(), method=self.s["method"], allow_outside_bounds=True)
-        report = self.analyse(lm, self.obs, outputs=self.obs.outputs)
+        report = self.analyze(lm, self.obs, outputs=self.obs.outputs)
         return report.verdict, report.margin, tr
 
 
@@ -209,9 +209,9 @@ def refine_chunk(context: WorkerContext, chunk: Chunk) -> list[ItemResult]:
 
 
 # ------------------------------------------------------------------------ 3. nonlinear check
-def empirical_selection(settings: ObservabilitySettings, analysed: Sequence[ItemResult]) -> list[int]:
-    """Which analysed points get the nonlinear check: all, or an even spread plus the weakest."""
-    ok = sorted(r.item_id for r in analysed if r.status == "ok")
+def empirical_selection(settings: ObservabilitySettings, analyzed: Sequence[ItemResult]) -> list[int]:
+    """Which analyzed points get the nonlinear check: all, or an even spread plus the weakest."""
+    ok = sorted(r.item_id for r in analyzed if r.status == "ok")
     if settings.empirical == "off" or not ok:
         return []
     if settings.empirical == "all" or len(ok) <= settings.empirical_points:
@@ -219,16 +219,16 @@ def empirical_selection(settings: ObservabilitySettings, analysed: Sequence[Item
     pick = set(np.unique(np.linspace(0, len(ok) - 1, settings.empirical_points - 1).round()
                          .astype(int)).tolist())
     chosen = {ok[k] for k in pick}
-    margins = {r.item_id: r.data["margin"] for r in analysed if r.status == "ok"}
+    margins = {r.item_id: r.data["margin"] for r in analyzed if r.status == "ok"}
     chosen.add(min(margins, key=lambda i: margins[i]))  # the weakest point is always checked
     return sorted(chosen)
 
 
 def empirical_chunks(study: "Study", store: "RunStore", *, workers: int) -> tuple[list[Chunk], int]:
     settings = settings_of(study)
-    analysed = store.results(STAGE)
-    chosen = empirical_selection(settings, analysed)
-    by_id = {r.item_id: r for r in analysed}
+    analyzed = store.results(STAGE)
+    chosen = empirical_selection(settings, analyzed)
+    by_id = {r.item_id: r for r in analyzed}
     sweep = {r.item_id: r for r in store.results("sweep")}
     done = store.done_ids(EMPIRICAL)
     from linobs.stages.sweep import stage_settings

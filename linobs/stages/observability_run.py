@@ -43,10 +43,10 @@ def run_observability(runner: "_Runner", run_dir: Path, files: dict[str, str]
     from threadpoolctl import threadpool_limits
 
     with threadpool_limits(1):  # thousands of tiny eigen/SVD problems: threads only cost
-        computed = obs.analyse_stored(study, store, progress=_counter(runner, total))
-    analysed = store.results(obs.STAGE)
+        computed = obs.analyze_stored(study, store, progress=_counter(runner, total))
+    analyzed = store.results(obs.STAGE)
     counts = {verdict_key(v): 0 for v in VERDICTS}
-    for r in analysed:
+    for r in analyzed:
         if r.status == "ok":
             counts[verdict_key(r.data["verdict"])] += 1
     out[obs.STAGE] = runner.finish(obs.STAGE, total, time.perf_counter() - t0, computed, counts)
@@ -65,9 +65,9 @@ def run_observability(runner: "_Runner", run_dir: Path, files: dict[str, str]
     out[obs.EMPIRICAL] = summary
 
     # 4. regions in plain words, 5. figures
-    _write_regions(runner, run_dir, analysed, boundary, files)
+    _write_regions(runner, run_dir, analyzed, boundary, files)
     if runner.figures:
-        _write_figures(runner, run_dir, analysed, boundary, counts, files)
+        _write_figures(runner, run_dir, analyzed, boundary, counts, files)
     return out
 
 
@@ -77,7 +77,7 @@ def _counter(runner: "_Runner", total: int):  # type: ignore[no-untyped-def]
     t0 = time.perf_counter()
 
     def report(done: int, pending: int) -> None:
-        if runner.progress is not None:  # ``pending`` of ``total`` were left to analyse
+        if runner.progress is not None:  # ``pending`` of ``total`` were left to analyze
             state = Progress(total=total, done=total - pending + done)
             state.counts["ok"] = state.done
             state.seconds = time.perf_counter() - t0
@@ -85,20 +85,20 @@ def _counter(runner: "_Runner", total: int):  # type: ignore[no-untyped-def]
     return report
 
 
-def _verdicts(analysed: list[Any]) -> dict[int, PointVerdict]:
-    return {r.item_id: point_verdict(r.data["report"]) for r in analysed if r.status == "ok"}
+def _verdicts(analyzed: list[Any]) -> dict[int, PointVerdict]:
+    return {r.item_id: point_verdict(r.data["report"]) for r in analyzed if r.status == "ok"}
 
 
-def _write_regions(runner: "_Runner", run_dir: Path, analysed: list[Any], boundary: list[Any],
+def _write_regions(runner: "_Runner", run_dir: Path, analyzed: list[Any], boundary: list[Any],
                    files: dict[str, str]) -> None:
     study = runner.study
     cat = study.catalogue
     labels = {v.name: v.description for v in cat.states if v.description}
     units = {n: cat.get(n).unit or "" for n in study.grid.names}
-    regions = find_regions(study.grid, _verdicts(analysed), boundary, labels=labels, units=units)
+    regions = find_regions(study.grid, _verdicts(analyzed), boundary, labels=labels, units=units)
     folder = run_dir / "observability"
     lines = [r.text for r in regions] or ["the measured outputs determine the state at every "
-                                          "analysed point (no weak or unobservable region)"]
+                                          "analyzed point (no weak or unobservable region)"]
     atomic_write_json(folder / "regions.json", [r.model_dump(mode="json") for r in regions])
     atomic_write_text(folder / "regions.txt", "\n".join(lines) + "\n")
     atomic_write_json(folder / "boundary.json", boundary)
@@ -107,7 +107,7 @@ def _write_regions(runner: "_Runner", run_dir: Path, analysed: list[Any], bounda
     files["boundary"] = str(folder / "boundary.json")
 
 
-def _write_figures(runner: "_Runner", run_dir: Path, analysed: list[Any], boundary: list[Any],
+def _write_figures(runner: "_Runner", run_dir: Path, analyzed: list[Any], boundary: list[Any],
                    counts: dict[str, int], files: dict[str, str]) -> None:
     from linobs.report.figures import margin_map, verdict_counts
 
@@ -115,7 +115,7 @@ def _write_figures(runner: "_Runner", run_dir: Path, analysed: list[Any], bounda
     settings = obs.settings_of(study)
     grid = study.grid
     figures = run_dir / "figures"
-    by_id = {r.item_id: r for r in analysed}
+    by_id = {r.item_id: r for r in analyzed}
     margins = np.array([by_id[i].data["margin"] if i in by_id and by_id[i].status == "ok"
                         else np.nan for i in range(len(grid))])
     verdicts = [by_id[i].data["verdict"] if i in by_id and by_id[i].status == "ok"

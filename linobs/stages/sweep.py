@@ -1,7 +1,7 @@
 """The ``sweep`` stage: trim and linearize the model at every point of the study's grid.
 
-Points are visited in the grid's continuation order (neighbour after
-neighbour, fixed-parameter groups contiguous) and cut into chunks; within a
+Points are visited in the grid's continuation order (neighbor after
+neighbor, fixed-parameter groups contiguous) and cut into chunks; within a
 chunk each trim is warm-started from the previous solved point.  Every point
 gets one stored result: ``ok`` (trim result + local linear model),
 ``not_converged`` (the trim's residual and iterations), ``failed`` (the FMU's

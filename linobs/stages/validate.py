@@ -1,12 +1,12 @@
 """The ``validate`` stage: the schedule between the nodes and on the nonlinear plant.
 
-1. **Frozen-point check.** At every cell centre and at random interior points
+1. **Frozen-point check.** At every cell center and at random interior points
    (seeded) the FMU is trimmed and linearized again — on the executor, with
    crash isolation — and the schedule's interpolated gain is applied to that
    true local model; the error dynamics must decay at the required rate.
 2. **Nonlinear check.** The plant FMU is simulated with fmpy along the
    scenario (on the executor); the scheduled estimator, and the single
-   fixed-gain estimator designed at the envelope's centre, run offline on the
+   fixed-gain estimator designed at the envelope's center, run offline on the
    noisy samples from a wrong initial estimate.
 """
 

@@ -12,7 +12,7 @@ from threadpoolctl import threadpool_limits
 
 # tests/conftest.py limits BLAS to one thread before numpy and scipy have loaded their
 # BLAS libraries, so its limit reaches none of them; these tests solve many tiny problems,
-# where extra BLAS threads only add synchronisation (common practice): limit them here.
+# where extra BLAS threads only add synchronization (common practice): limit them here.
 threadpool_limits(1)
 
 

@@ -2,7 +2,7 @@
 
 Built in the tests with the project's C framework (linobs/model/csupport):
 der(x1) = -a1 x1 + w1, der(x2) = k x1 - a2 x2 + w2, y = x2, with a1 = 1, a2 = 0.5, k = 1.
-Held white inputs w realise a discrete process noise Γ w exactly (Γ: the zero-order-hold input
+Held white inputs w realize a discrete process noise Γ w exactly (Γ: the zero-order-hold input
 matrix), so a Kalman filter designed with Q = σ_w² Γ Γᵀ is exactly tuned.
 """
 

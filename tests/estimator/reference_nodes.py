@@ -1,7 +1,7 @@
 """Node designs built in the tests from reference libraries only (scipy), not from linobs' design code.
 
 Each node: partial trim and linearization by linobs (already tested against published models),
-exact zero-order hold by ``scipy.signal.cont2discrete``, process noise discretised by Van Loan's
+exact zero-order hold by ``scipy.signal.cont2discrete``, process noise discretized by Van Loan's
 method (``scipy.linalg.expm``), and the steady-state Kalman gain from
 ``scipy.linalg.solve_discrete_are`` on (Φᵀ, Cᵀ).
 

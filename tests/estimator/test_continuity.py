@@ -1,4 +1,4 @@
-"""Gain continuity between neighbouring nodes: constructed jumps, smooth schedules, causes."""
+"""Gain continuity between neighboring nodes: constructed jumps, smooth schedules, causes."""
 
 from __future__ import annotations
 
@@ -33,7 +33,7 @@ def test_one_changed_gain_is_flagged_with_exactly_that_change() -> None:
     factor = 3.0
     nodes = [node(L0 * factor if i == 4 else L0) for i in range(9)]
     jumps = gain_jumps(tensor_schedule(AXES, nodes), threshold=0.5)
-    # the centre node (1, 1) has four tensor neighbours: nodes 1, 3, 5, 7
+    # the center node (1, 1) has four tensor neighbors: nodes 1, 3, 5, 7
     assert sorted((j.node_a, j.node_b) for j in jumps) == [(1, 4), (3, 4), (4, 5), (4, 7)]
     for jp in jumps:
         # analytic: ‖f L − L‖ / max(‖f L‖, ‖L‖) = (f − 1) / f for f > 1
@@ -64,7 +64,7 @@ def test_smooth_schedule_is_not_flagged() -> None:
     grid = Grid.tensor([Axis(k, v) for k, v in AXES.items()])
     changes = {}
     for i in range(9):
-        for j in grid.neighbours(i):
+        for j in grid.neighbors(i):
             if i < j:
                 Li, Lj = nodes[i].L, nodes[j].L
                 changes[(i, j)] = np.linalg.norm(Li - Lj) / max(np.linalg.norm(Li),
@@ -80,7 +80,7 @@ def test_smooth_schedule_is_not_flagged() -> None:
     assert values == sorted(values, reverse=True)  # largest first
 
 
-def test_refused_neighbour_is_a_verdict_change() -> None:
+def test_refused_neighbor_is_a_verdict_change() -> None:
     nodes = [node(None if i == 0 else L0) for i in range(9)]
     jumps = gain_jumps(tensor_schedule(AXES, nodes), threshold=0.5)
     assert sorted((j.node_a, j.node_b) for j in jumps) == [(0, 1), (0, 3)]
@@ -115,7 +115,7 @@ def test_pole_shift_matches_conjugate_pairs_in_any_order() -> None:
     assert pole_shift([], [(0.5, 0.0)]) is None
 
 
-def test_scattered_neighbours_are_the_delaunay_edges() -> None:
+def test_scattered_neighbors_are_the_delaunay_edges() -> None:
     rng = np.random.default_rng(3)
     pts = np.column_stack([rng.uniform(0, 50, 12), rng.uniform(0, 0.1, 12)])
     changed = 5

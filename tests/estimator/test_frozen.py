@@ -83,11 +83,11 @@ def radius(M: np.ndarray) -> float:
 
 
 # ---------------------------------------------------------------------- the points
-def test_cell_centres_of_a_3_by_4_grid_are_the_midpoints() -> None:
+def test_cell_centers_of_a_3_by_4_grid_are_the_midpoints() -> None:
     a, b = [0.0, 1.0, 4.0], [-1.0, 0.0, 0.5, 2.5]
     grid = Grid.tensor([Axis("a", a), Axis("b", b)])
     pts = frozen_points(grid, ValidationSettings(random_points=0))
-    # analytic: the 2 × 3 cells' centres, C order
+    # analytic: the 2 × 3 cells' centers, C order
     expected = [{"a": ma, "b": mb} for ma in (0.5, 2.5) for mb in (-0.5, 0.25, 1.5)]
     assert pts == expected
 
@@ -144,7 +144,7 @@ def test_interpolated_kalman_gains_pass_with_the_right_radius(form: str) -> None
 
 def test_a_bad_node_fails_where_its_gain_is_used() -> None:
     values = [0.0, 1.0, 2.0, 3.0, 4.0]
-    bad = {3: np.array([[3.0], [-2.0]])}   # a destabilising gain at s = 3
+    bad = {3: np.array([[3.0], [-2.0]])}   # a destabilizing gain at s = 3
     schedule, gains = oscillator_schedule(values, "filter", bad)
     points = [{"s": s} for s in (0.5, 1.5, 2.5, 3.5, 2.9, 3.0)]
     report = frozen_point_check(schedule, points, analytic_callback, ValidationSettings())
@@ -265,13 +265,13 @@ def test_four_tank_kalman_schedule_passes(bundled_fmus: dict[str, Path]) -> None
         settings = ValidationSettings(random_points=6, seed=2)
         points = frozen_points(grid, settings)
         report = frozen_point_check(schedule, points, local, settings)
-        centre = {"v1": 2.8, "v2": 3.2}
-        lm_centre = local(centre)
+        center = {"v1": 2.8, "v2": 3.2}
+        lm_center = local(center)
     assert report.count == 4 + 6 and report.all_passed, [fp.message for fp in report.points]
     assert report.worst_decay_reserve is not None and report.worst_decay_reserve > 0
-    # independent at one cell centre: bilinear weights are all 1/4 there (analytic)
+    # independent at one cell center: bilinear weights are all 1/4 there (analytic)
     L = 0.25 * sum(nodes[grid.flat_index(ix)].L for ix in ((0, 1), (0, 2), (1, 1), (1, 2)))
-    rho = radius((np.eye(4) - L @ lm_centre.C) @ expm(lm_centre.A * Ts))
-    fp = next(p for p in report.points if p.values == pytest.approx(centre))
+    rho = radius((np.eye(4) - L @ lm_center.C) @ expm(lm_center.A * Ts))
+    fp = next(p for p in report.points if p.values == pytest.approx(center))
     assert fp.spectral_radius == pytest.approx(rho, rel=1e-8)
     assert fp.model_mismatch is not None and fp.model_mismatch < 0.05

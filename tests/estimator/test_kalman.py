@@ -156,14 +156,14 @@ def test_unexcited_integrator_is_refused_with_the_fix() -> None:
     assert "process_noise for x0" in node.message
 
 
-def test_unexcited_unstable_mode_uses_the_stabilising_solution() -> None:
+def test_unexcited_unstable_mode_uses_the_stabilizing_solution() -> None:
     a_c, r = 0.6, 0.04
     lm = linear_model(np.array([[a_c]]), np.zeros((1, 1)), np.ones((1, 1)))
     node = design_node(lm, kalman("predictor", measurement_noise={"y0": np.sqrt(r)}))
     assert node.status == "ok", node.message
     assert "does not reach the unstable" in node.message
     a = np.exp(a_c * TS)
-    # scalar DARE with Q = 0: P = a²P − a²P²/(P + R) ⇒ P = R (a² − 1) (the stabilising root)
+    # scalar DARE with Q = 0: P = a²P − a²P²/(P + R) ⇒ P = R (a² − 1) (the stabilizing root)
     assert node.P_prior[0, 0] == pytest.approx(r * (a ** 2 - 1), rel=1e-10)
     # error pole a (1 − P/(P + R)) = 1/a (analytic)
     assert pole_mismatch(as_complex(node.error_poles), np.array([1 / a])) < 1e-10

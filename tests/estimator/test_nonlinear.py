@@ -16,7 +16,7 @@ from linobs.errors import ModelError, UsageError
 from linobs.estimator.node import NodeDesign
 from linobs.estimator.nonlinear import (
     assess_run,
-    centre_node_index,
+    center_node_index,
     compare,
     fixed_gain_schedule,
     initial_estimate,
@@ -238,11 +238,11 @@ def test_luenberger_convergence_time_follows_the_error_dynamics(chain_fmu: Path)
 def test_four_tank_schedule_converges_from_a_wrong_initial_estimate(bundled_fmus) -> None:
     Ts = 1.0
     schedule, lms = four_tank_schedule(bundled_fmus["four_tank"], Ts=Ts)
-    centre = lms[4]  # v1 = v2 = 3 V
+    center = lms[4]  # v1 = v2 = 3 V
     gen = generate_scenario(schedule.data, sample_time=Ts, start_inputs={"v1": 3.0, "v2": 3.0},
                             start_states={})
     run = simulate_plant(bundled_fmus["four_tank"], gen.scenario(["v1", "v2"]),
-                         dict(zip(centre.states, centre.x0)), {}, Ts, ["y1", "y2"])
+                         dict(zip(center.states, center.x0)), {}, Ts, ["y1", "y2"])
     settings = ValidationSettings(initial_error={"h1": 2.0, "h2": -2.0, "h3": 1.5, "h4": -1.0})
     est = run_estimator(schedule, run, initial_estimate=initial_estimate(schedule, run, settings),
                         noise_std=TANK_NOISE, seed=0)
@@ -272,8 +272,8 @@ def test_cell_schedule_converges_and_beats_the_fixed_gain_on_soc(bundled_fmus) -
     settings = ValidationSettings(initial_error={"soc": -0.1, "temp_cell": 2.0}, seed=0)
     start = initial_estimate(schedule, run, settings)
     fixed = fixed_gain_schedule(schedule)
-    # the centre of the box soc 0.05..0.95 × i_cell −40..40 is the node soc 0.5, i_cell 0
-    assert centre_node_index(schedule.data) == 4 * 3 + 1
+    # the center of the box soc 0.05..0.95 × i_cell −40..40 is the node soc 0.5, i_cell 0
+    assert center_node_index(schedule.data) == 4 * 3 + 1
     runs = {label: run_estimator(s, run, initial_estimate=start, noise_std=CELL_NOISE, seed=0,
                                  label=label) for label, s in (("schedule", schedule),
                                                                ("fixed gain", fixed))}
@@ -289,7 +289,7 @@ def test_cell_schedule_converges_and_beats_the_fixed_gain_on_soc(bundled_fmus) -
     # temperature: after settling within 0.5 K, 2.5 σ of one t_surf sample (0.2 K) (the filter
     # averages many samples, so this is loose; analytic: σ of one sample from CELL_NOISE)
     assert np.max(np.abs(e_sched[settled, run.state_names.index("temp_cell")])) <= 0.5
-    # the fixed gain at the centre (the OCV plateau, slope ~0.055 V per unit soc in the OCV
+    # the fixed gain at the center (the OCV plateau, slope ~0.055 V per unit soc in the OCV
     # table of fmus/lfp_cell/sources/model.c) extrapolates its OCV line to the steep ends, where
     # it is ~0.1 V off (OCV 3.18 V at soc 0.06 against 3.28 V on the line): it cannot hold soc
     rms_sched, rms_fixed = rms(e_sched[:, soc]), rms(e_fixed[:, soc])
@@ -311,17 +311,17 @@ def test_cell_schedule_converges_and_beats_the_fixed_gain_on_soc(bundled_fmus) -
 def test_fixed_gain_schedule_is_one_node_everywhere(bundled_fmus) -> None:
     schedule, _ = four_tank_schedule(bundled_fmus["four_tank"], Ts=1.0)
     fixed = fixed_gain_schedule(schedule)
-    centre = schedule.data.nodes[4]            # (3 V, 3 V) is the middle of the 3 × 3 grid
+    center = schedule.data.nodes[4]            # (3 V, 3 V) is the middle of the 3 × 3 grid
     ev = fixed.evaluate([])                    # no scheduling variables at all
-    np.testing.assert_array_equal(ev.values["L"], centre.L)
-    np.testing.assert_array_equal(ev.values["x0"], centre.x0)
+    np.testing.assert_array_equal(ev.values["L"], center.L)
+    np.testing.assert_array_equal(ev.values["x0"], center.x0)
     assert ev.usable and not ev.outside
-    x_next, _ = fixed.step(centre.x0 + 1.0, np.array([4.0, 2.0]), centre.y0)
-    # the centre node's filter update, written out with numpy (node.py conventions)
-    prior = centre.x0 + centre.Phi @ np.ones(4) + \
-        centre.Gamma @ (np.array([4.0, 2.0]) - centre.u0) + centre.Gamma0 @ centre.dx0
-    expected = prior + centre.L @ (centre.y0 - (centre.y0 + centre.C @ (prior - centre.x0)
-                                                + centre.D @ (np.array([4.0, 2.0]) - centre.u0)))
+    x_next, _ = fixed.step(center.x0 + 1.0, np.array([4.0, 2.0]), center.y0)
+    # the center node's filter update, written out with numpy (node.py conventions)
+    prior = center.x0 + center.Phi @ np.ones(4) + \
+        center.Gamma @ (np.array([4.0, 2.0]) - center.u0) + center.Gamma0 @ center.dx0
+    expected = prior + center.L @ (center.y0 - (center.y0 + center.C @ (prior - center.x0)
+                                                + center.D @ (np.array([4.0, 2.0]) - center.u0)))
     np.testing.assert_allclose(x_next, expected, rtol=1e-12, atol=1e-12)
     other = schedule.data.nodes[0]
     assert fixed_gain_schedule(schedule, other).data.nodes[0] is other

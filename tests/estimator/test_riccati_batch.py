@@ -77,9 +77,9 @@ def test_fallback_per_node_is_reported() -> None:
         assert relative(sol.P[i], ref) < 1e-12
 
 
-def test_no_stabilising_solution_is_not_converged() -> None:
+def test_no_stabilizing_solution_is_not_converged() -> None:
     # an integrator (Φ = 1) that the noise does not reach: P = 0 solves the DARE but its
-    # closed loop keeps z = 1, so no stabilising solution exists (Anderson & Moore 1979,
+    # closed loop keeps z = 1, so no stabilizing solution exists (Anderson & Moore 1979,
     # ch. 4 — from memory); the doubling must not report convergence
     Phi = np.array([[[1.0, 0.0], [0.0, 0.5]]])
     C = np.array([[[1.0, 1.0]]])

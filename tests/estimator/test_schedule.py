@@ -115,7 +115,7 @@ def test_exact_at_every_node(random3) -> None:  # type: ignore[no-untyped-def]
 def test_linear_along_an_edge(random3) -> None:  # type: ignore[no-untyped-def]
     schedule, nodes = random3
     grid = Grid.tensor([Axis(k, v) for k, v in AXES3.items()])
-    i, j = grid.flat_index((1, 2, 1)), grid.flat_index((1, 3, 1))  # neighbours along axis b
+    i, j = grid.flat_index((1, 2, 1)), grid.flat_index((1, 3, 1))  # neighbors along axis b
     for t in np.linspace(0.0, 1.0, 7):
         s = (1 - t) * grid.points[i] + t * grid.points[j]
         ev = schedule.evaluate(s)
@@ -237,7 +237,7 @@ def test_cells_touching_a_refused_node_are_unusable() -> None:
     np.testing.assert_array_equal(batch.usable, [False, True, True])
 
 
-def test_refused_centre_node_makes_every_cell_unusable() -> None:
+def test_refused_center_node_makes_every_cell_unusable() -> None:
     rng = np.random.default_rng(4)
     nodes = [random_node(rng, refused=(i == 4)) for i in range(9)]
     schedule = tensor_schedule({"a": [0.0, 1.0, 2.0], "b": [0.0, 1.0, 2.0]}, nodes)
@@ -258,7 +258,7 @@ def test_unusable_step_keeps_the_prediction() -> None:
     np.testing.assert_allclose(x, expected, rtol=1e-14)
 
 
-# ---------------------------------------------------------------------- serialisation
+# ---------------------------------------------------------------------- serialization
 def test_json_round_trip_gives_an_identical_schedule() -> None:
     rng = np.random.default_rng(9)
     nodes = [random_node(rng, refused=(i == 5)) for i in range(12)]

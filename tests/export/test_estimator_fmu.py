@@ -112,8 +112,8 @@ def tank(bundled_fmus: dict[str, Path], tmp_path_factory: pytest.TempPathFactory
     out = {}
     for form in ("filter", "predictor"):
         schedule = refuse(four_tank_schedule(bundled_fmus["four_tank"], Ts=1.0, form=form)[0], 8)
-        centre = schedule.data.nodes[4]
-        start = {s: float(x) + dx for s, x, dx in zip(schedule.states, centre.x0,
+        center = schedule.data.nodes[4]
+        start = {s: float(x) + dx for s, x, dx in zip(schedule.states, center.x0,
                                                      (1.0, -1.0, 0.5, -0.5))}
         path = build_estimator_fmu(schedule, folder / f"tank_{form}.fmu",
                                    model_name=f"tank {form} estimator", caution=CAUTION,
@@ -125,9 +125,9 @@ def tank(bundled_fmus: dict[str, Path], tmp_path_factory: pytest.TempPathFactory
                         times=np.array([0.0, 15.0, 15.0, 45.0, 45.0, 80.0]),
                         values=np.array([[3.0, 3.0], [3.0, 3.0], [3.7, 3.6], [3.7, 3.6],
                                          [2.3, 3.4], [2.3, 3.4]]))
-    centre = schedule.data.nodes[4]
+    center = schedule.data.nodes[4]
     run = simulate_plant(bundled_fmus["four_tank"], scenario,
-                         dict(zip(schedule.states, map(float, centre.x0))), {}, 1.0,
+                         dict(zip(schedule.states, map(float, center.x0))), {}, 1.0,
                          ["y1", "y2"])
     return out, run
 

@@ -182,8 +182,8 @@ def test_bad_tables_give_one_clear_message(exported: tuple[Path, dict], tmp_path
         "truncated": (text[: len(text) // 2], "not valid JSON"),
         "version": (text.replace(f'"schema_version": {SCHEMA_VERSION}', '"schema_version": 99', 1),
                     "schema_version 99"),
-        "unknown": (text.replace('"format":', '"colour": "red",\n "format":', 1),
-                    "colour: unknown field"),
+        "unknown": (text.replace('"format":', '"color": "red",\n "format":', 1),
+                    "color: unknown field"),
         "other": (json.dumps({"format": "something-else"}), "not a linobs schedule table"),
     }
     for name, (content, message) in cases.items():

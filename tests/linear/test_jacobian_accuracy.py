@@ -93,7 +93,7 @@ def test_evaluation_counts(bundled_fmus: dict[str, Path], plant: str) -> None:
         assert central.evaluations == 2 * central.column_groups + 1
 
 
-def test_four_tank_colours_into_three_groups(bundled_fmus: dict[str, Path]) -> None:
+def test_four_tank_colors_into_three_groups(bundled_fmus: dict[str, Path]) -> None:
     # analytic: the pattern of Johansson (2000) eq. (2) lets {h1,h2}, {h3,h4}, {v1,v2} share
     # perturbations, so forward differencing costs 3 + 1 = 4 evaluations instead of 7
     with load_model(bundled_fmus["four_tank"]) as model:

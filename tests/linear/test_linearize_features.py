@@ -1,4 +1,4 @@
-"""Bounds, switching surfaces, noise zeros, structure checks and serialisation."""
+"""Bounds, switching surfaces, noise zeros, structure checks and serialization."""
 
 from __future__ import annotations
 
@@ -115,7 +115,7 @@ def test_parameters_in_the_point(bundled_fmus: dict[str, Path]) -> None:
         assert lm.parameters["gamma1"] == 0.43
         assert lm.B[0, 0] == pytest.approx(0.43 * 3.14 / 28.0, rel=1e-12)
         before = model.initializations
-        model.linearize({"A1": 30.0}, method="exact")  # a fixed parameter: re-initialised once
+        model.linearize({"A1": 30.0}, method="exact")  # a fixed parameter: re-initialized once
         assert model.initializations == before + 1
 
 

@@ -74,7 +74,7 @@ def test_error_status_quotes_fmu_log_and_recovers(minimal: Path, compiled: bool,
         assert "get derivatives returned Error at pos=1, vel=2, force=-200" in str(err)
         assert "outside the model's validity" in str(err)
         assert err.point == {"pos": 1.0, "vel": 2.0, "force": -200.0} and err.status == 3
-        # the instance was reset and re-initialised with the parameters set before
+        # the instance was reset and re-initialized with the parameters set before
         dx, _ = m.evaluate([1.0, 2.0], [3.0])
         np.testing.assert_array_equal(dx, oscillator(np.array([1.0, 2.0]), np.array([3.0]), c=1.0)[0])
 
@@ -89,7 +89,7 @@ def test_batch_failure_names_the_failing_row(minimal: Path) -> None:
             m.evaluate_batch(np.zeros((2, 3)), np.zeros((2, 1)))
 
 
-def test_fixed_parameters_reinitialise_only_on_change(minimal: Path) -> None:
+def test_fixed_parameters_reinitialize_only_on_change(minimal: Path) -> None:
     with load_model(minimal) as m:
         assert m.initializations == 1
         assert m.set_parameters({"stiffness": 4.0}) is False  # unchanged start value

@@ -1,13 +1,13 @@
 """Small linear test systems with known observability, and a LinearModel factory.
 
 Thermal RC ladder (common practice): n equal heat capacities in a row, equal
-conductances between neighbours and from each end node to a fixed ambient,
+conductances between neighbors and from each end node to a fixed ambient,
 all scaled to 1, so with node temperatures T
 
     dT/dt = −L T,   L = tridiag(−1, 2, −1)   (Dirichlet Laplacian of a path).
 
 Mass-spring chain (common practice): n unit masses, unit springs between
-neighbours and from each end mass to a wall, no damping, states
+neighbors and from each end mass to a wall, no damping, states
 (positions q, velocities v):
 
     dq/dt = v,   dv/dt = −L q.

@@ -29,10 +29,10 @@ import numpy as np
 import pytest
 import scipy.linalg
 
-from linobs.observability.analysis import analyse_matrices
+from linobs.observability.analysis import analyze_matrices
 from linobs.observability.assessment import default_tolerance
 from linobs.observability.directions import orthonormal_span
-from linobs.observability.pbh import pbh_normaliser, pbh_null_vectors
+from linobs.observability.pbh import pbh_normalizer, pbh_null_vectors
 from linobs.observability.staircase import observability_staircase
 from tests.observability.models import (
     antisymmetric_basis,
@@ -71,7 +71,7 @@ def _check_family(cases: list[tuple[str, int, str]]) -> list[tuple[str, int, str
     rank_wrong: list[tuple[str, int, str]] = []
     for kind, n, where in cases:
         A, C, dim, truth = _case(kind, n, where)
-        report = analyse_matrices(A, C, _names(A.shape[0]), ["y"])
+        report = analyze_matrices(A, C, _names(A.shape[0]), ["y"])
         # analytic (module notes): observable from an end, antisymmetric modes lost at the middle;
         # an observable chain may be graded 'weak' (the far modes are hard to see), never worse
         if truth == "observable":
@@ -118,7 +118,7 @@ def test_mass_spring_verdicts_right_up_to_sixty_masses() -> None:
 def test_unobservable_basis_is_the_antisymmetric_subspace(kind: str, n: int) -> None:
     A, C, dim, _ = _case(kind, n, "middle")
     expected = antisymmetric_basis(n, mass_spring=(kind == "mass"))   # analytic (module notes)
-    tol = default_tolerance(A.shape[0]) * pbh_normaliser(A, C)
+    tol = default_tolerance(A.shape[0]) * pbh_normalizer(A, C)
     stair = observability_staircase(A, C, tol)
     assert stair.unobservable_dimension == dim == expected.shape[1]
     # principal angles between the subspaces (scipy): zero up to rounding
@@ -137,7 +137,7 @@ def test_unobservable_basis_is_the_antisymmetric_subspace(kind: str, n: int) -> 
     assert np.max(scipy.linalg.subspace_angles(null, stair.unobservable_basis)) < 1e-8
 
     # the report names the same directions: each is ±(node j − node n−1−j)/√2
-    report = analyse_matrices(A, C, _names(A.shape[0]), ["y"])
+    report = analyze_matrices(A, C, _names(A.shape[0]), ["y"])
     names = _names(A.shape[0])
     vectors = np.array([[d.components.get(s, 0.0) for s in names]
                         for d in report.unobservable_basis]).T
@@ -152,6 +152,6 @@ def test_even_chain_measured_near_the_middle_is_observable() -> None:
     # (sin((n/2)kπ/(n+1)) ≠ 0 for k = 1..n since (n/2)k/(n+1) is never an integer) — analytic
     for n in (4, 10, 30, 60):
         A = thermal_ladder(n)
-        report = analyse_matrices(A, node_output(n, n // 2 - 1), _names(n), ["y"])
+        report = analyze_matrices(A, node_output(n, n // 2 - 1), _names(n), ["y"])
         assert report.verdict in ("observable", "weak")
         assert report.unobservable_dimension == 0

@@ -7,7 +7,7 @@ import numpy as np
 import pytest
 
 from linobs.errors import UsageError
-from linobs.observability.analysis import analyse, analyse_matrices
+from linobs.observability.analysis import analyze, analyze_matrices
 from linobs.observability.report import ObservabilitySettings
 from tests.observability.models import linear_model
 
@@ -15,7 +15,7 @@ from tests.observability.models import linear_model
 def test_unobservable_stable_mode_is_detectable() -> None:
     # x1' = x1 (unstable, measured), x2' = −2 x2 (stable, hidden): detectable by definition
     # (Hautus 1969: every unobservable mode is stable)
-    report = analyse_matrices(np.diag([1.0, -2.0]), np.array([[1.0, 0.0]]), ["a", "b"], ["y"])
+    report = analyze_matrices(np.diag([1.0, -2.0]), np.array([[1.0, 0.0]]), ["a", "b"], ["y"])
     assert report.verdict == "unobservable-detectable"
     assert report.detectable
     assert report.unobservable_basis[0].components == pytest.approx({"b": 1.0})
@@ -24,7 +24,7 @@ def test_unobservable_stable_mode_is_detectable() -> None:
 
 def test_unobservable_unstable_mode_is_not_detectable() -> None:
     # x1' = −x1 (measured), x2' = 2 x2 (unstable, hidden): not detectable by definition
-    report = analyse_matrices(np.diag([-1.0, 2.0]), np.array([[1.0, 0.0]]), ["a", "b"], ["y"])
+    report = analyze_matrices(np.diag([-1.0, 2.0]), np.array([[1.0, 0.0]]), ["a", "b"], ["y"])
     assert report.verdict == "unobservable"
     assert not report.detectable
     hidden = [m for m in report.modes if not m.observable]
@@ -34,7 +34,7 @@ def test_unobservable_unstable_mode_is_not_detectable() -> None:
 
 def test_hidden_integrator_is_not_detectable() -> None:
     # a hidden pure integrator (λ = 0) does not decay: not detectable (definition)
-    report = analyse_matrices(np.diag([-1.0, 0.0]), np.array([[1.0, 0.0]]), ["a", "b"], ["y"])
+    report = analyze_matrices(np.diag([-1.0, 0.0]), np.array([[1.0, 0.0]]), ["a", "b"], ["y"])
     assert report.verdict == "unobservable"
 
 
@@ -49,7 +49,7 @@ def _three_tank_model():  # type: ignore[no-untyped-def]
 
 def test_exactly_one_candidate_restores_observability() -> None:
     lm = _three_tank_model()
-    report = analyse(lm, ObservabilitySettings(candidates=["b"]), outputs=["sum_ab"])
+    report = analyze(lm, ObservabilitySettings(candidates=["b"]), outputs=["sum_ab"])
     assert report.verdict == "unobservable-detectable"
     by_name = {a.candidate: a for a in report.sensor_advice}
     assert set(by_name) == {"b_only", "a_plus_c", "b"}
@@ -70,6 +70,6 @@ def test_exactly_one_candidate_restores_observability() -> None:
 def test_unknown_candidate_names_suggest_the_closest() -> None:
     lm = _three_tank_model()
     with pytest.raises(UsageError, match="did you mean 'b_only'"):
-        analyse(lm, ObservabilitySettings(candidates=["b_onyl"]), outputs=["sum_ab"])
+        analyze(lm, ObservabilitySettings(candidates=["b_onyl"]), outputs=["sum_ab"])
     with pytest.raises(UsageError, match="sum_ab"):
-        analyse(lm, outputs=["sum_abc"])
+        analyze(lm, outputs=["sum_abc"])

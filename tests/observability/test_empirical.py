@@ -12,7 +12,7 @@ from scipy.linalg import expm
 from linobs.errors import ModelError, UsageError
 from linobs.model.build import build_fmu
 from linobs.model.loader import load_model
-from linobs.observability.analysis import analyse
+from linobs.observability.analysis import analyze
 from linobs.observability.empirical import (
     EmpiricalGramian,
     compare_with_linear,
@@ -210,7 +210,7 @@ def test_bilinear_drift_matches_the_closed_form(drift):
 
 def test_drift_makes_the_checks_disagree(drift):
     g = empirical_gramian(drift, {}, ["y"], horizon=10.0)
-    report = analyse(drift.linearize({}), ObservabilitySettings(), outputs=["y"])
+    report = analyze(drift.linearize({}), ObservabilitySettings(), outputs=["y"])
     agreement = compare_with_linear(report, g)
     assert not agreement.agree
     # q decays (der(q) = -q) and the linear sensor misses it: detectable, not observable
@@ -227,7 +227,7 @@ def test_lfp_cell_at_rest_agrees_with_its_linearization(bundled_fmus):
         point = {"soc": 0.5, "i_cell": 0.0, "t_amb": 25.0, "temp_cell": 25.0}
         g = empirical_gramian(model, point, ["v_term", "t_surf"], horizon=T, samples=800)
         lm = model.linearize(point)
-        report = analyse(lm, ObservabilitySettings(), outputs=["v_term", "t_surf"])
+        report = analyze(lm, ObservabilitySettings(), outputs=["v_term", "t_surf"])
     A_s, C_s = scaled(lm.A, lm.C, lm.state_nominal, np.ones(2))
     # scipy reference on the local linear model: small perturbations see the linearization
     reference = quadrature_gramian(A_s, C_s, T)
@@ -252,7 +252,7 @@ def test_leaving_the_declared_range_is_a_warning(bundled_fmus):
 
 def test_compare_refuses_different_outputs(drift, chain):
     g = empirical_gramian(chain, {}, ["y"], horizon=2.0, samples=50)
-    report = analyse(chain.linearize({}), ObservabilitySettings(), outputs=["y"])
+    report = analyze(chain.linearize({}), ObservabilitySettings(), outputs=["y"])
     other = g.model_copy(update={"outputs": ["x1"]})
     with pytest.raises(UsageError, match="same outputs"):
         compare_with_linear(report, other)

@@ -8,7 +8,7 @@ import pytest
 import scipy.integrate
 import scipy.linalg
 
-from linobs.observability.analysis import analyse_matrices
+from linobs.observability.analysis import analyze_matrices
 from linobs.observability.gramian import (
     default_horizon,
     finite_gramian,
@@ -98,7 +98,7 @@ def test_default_horizon_rule() -> None:
 def test_report_uses_the_infinite_gramian_only_when_stable() -> None:
     A, _ = cart_pendulum()
     C = np.array([[1.0, 0.0, 0.0, 0.0]])
-    report = analyse_matrices(A, C, ["x", "v", "th", "om"], ["x"])
+    report = analyze_matrices(A, C, ["x", "v", "th", "om"], ["x"])
     assert report.gramian.kind == "finite"
     # the pendulum's stable mode λ = −sqrt((M + m) g / (M l)) sets T = 5 / |λ| (documented rule)
     lam = np.sqrt(1.2 * 9.81 / 0.5)
@@ -109,6 +109,6 @@ def test_report_uses_the_infinite_gramian_only_when_stable() -> None:
         epsabs=1e-13, epsrel=1e-11)
     np.testing.assert_allclose(report.gramian.eigenvalues, np.linalg.eigvalsh(W), rtol=1e-6,
                                atol=1e-12)
-    stable = analyse_matrices(thermal_ladder(4), np.eye(4)[:1], list("abcd"), ["y"])
+    stable = analyze_matrices(thermal_ladder(4), np.eye(4)[:1], list("abcd"), ["y"])
     assert stable.gramian.kind == "infinite" and stable.gramian.horizon is None
     assert stable.gramian.eigenvalues == sorted(stable.gramian.eigenvalues)

@@ -17,7 +17,7 @@ import scipy.linalg
 
 from linobs.linear.linear_model import LinearModel
 from linobs.model.loader import load_model
-from linobs.observability.analysis import analyse
+from linobs.observability.analysis import analyze
 from linobs.observability.report import Mode, ObservabilityReport
 from tests.reference import plants
 
@@ -45,7 +45,7 @@ def _scaled_reference(lm: LinearModel) -> tuple[np.ndarray, np.ndarray]:
 
 def test_state_of_charge_is_weak_on_the_plateau(cell_models: dict[float, LinearModel]) -> None:
     lm = cell_models[0.5]
-    report = analyse(lm, margin_normalization="sum")
+    report = analyze(lm, margin_normalization="sum")
     soc = _soc_mode(report)
     assert soc.real == 0.0 or abs(soc.real) < 1e-12          # the integrator (analytic)
     assert soc.margin < report.weak_threshold
@@ -60,7 +60,7 @@ def test_state_of_charge_is_weak_on_the_plateau(cell_models: dict[float, LinearM
 def test_soc_visibility_follows_the_ocv_slope(cell_models: dict[float, LinearModel]) -> None:
     seen = {}
     for soc_value, lm in cell_models.items():
-        report = analyse(lm, margin_normalization="sum")
+        report = analyze(lm, margin_normalization="sum")
         A, C = _scaled_reference(lm)
         slope = plants.lfp_tables(soc_value, 25.0, dsoc=1)["ocv"]     # reference OCV table
         # eigenvector test of the soc mode, from the reference (module notes)
@@ -73,7 +73,7 @@ def test_soc_visibility_follows_the_ocv_slope(cell_models: dict[float, LinearMod
 def test_balanced_margin_separates_plateau_and_ends(cell_models: dict[float, LinearModel]) -> None:
     margins = {}
     for soc_value, lm in cell_models.items():
-        report = analyse(lm, margin_normalization="balanced")
+        report = analyze(lm, margin_normalization="balanced")
         A, C = _scaled_reference(lm)
         # balanced margin at λ = 0 from the reference Jacobians (scipy svdvals; definition)
         ref = scipy.linalg.svdvals(np.vstack([-A / np.linalg.norm(A, 2),

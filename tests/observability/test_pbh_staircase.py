@@ -8,9 +8,9 @@ import pytest
 import scipy.linalg
 import scipy.stats
 
-from linobs.observability.analysis import analyse_matrices
+from linobs.observability.analysis import analyze_matrices
 from linobs.observability.assessment import default_tolerance
-from linobs.observability.pbh import pbh_margins, pbh_normaliser
+from linobs.observability.pbh import pbh_margins, pbh_normalizer
 from linobs.observability.staircase import observability_staircase
 from tests.observability.models import cart_pendulum
 
@@ -50,7 +50,7 @@ def test_verdicts_agree_with_the_rank_of_well_conditioned_observability_matrices
         rank = np.linalg.matrix_rank(control.obsv(A, C))
         if rank < n and s[rank - 1] / s[0] < 1e-6 or rank == n and s[-1] / s[0] < 1e-6:
             continue
-        report = analyse_matrices(A, C, _names(n), [f"y{i}" for i in range(p)])
+        report = analyze_matrices(A, C, _names(n), [f"y{i}" for i in range(p)])
         assert report.unobservable_dimension == n - rank
         if rank == n:
             assert report.verdict in ("observable", "weak")
@@ -104,7 +104,7 @@ def test_margin_is_the_distance_to_an_unobservable_pair() -> None:
     # python-control's observability matrix loses rank (reference library)
     sv = np.linalg.svd(control.obsv(A_new, C_new), compute_uv=False)
     assert sv[-1] / sv[0] < 1e-10
-    report = analyse_matrices(A_new, C_new, _names(4), ["y"])
+    report = analyze_matrices(A_new, C_new, _names(4), ["y"])
     assert report.unobservable_dimension == 1
     assert report.verdict.startswith("unobservable")
 
@@ -115,7 +115,7 @@ def test_cart_pendulum_with_only_the_angle_measured() -> None:
     # the pendulum equation); the double integrator at λ = 0 does not decay: not detectable
     A, _ = cart_pendulum()
     C = np.array([[0.0, 0.0, 1.0, 0.0], [1.0, 0.0, 0.0, 0.0]])
-    report = analyse_matrices(A, C, CART, ["theta", "x"], outputs=["theta"])
+    report = analyze_matrices(A, C, CART, ["theta", "x"], outputs=["theta"])
     assert report.verdict == "unobservable"
     assert not report.detectable
     assert report.unobservable_dimension == 2
@@ -125,7 +125,7 @@ def test_cart_pendulum_with_only_the_angle_measured() -> None:
     hidden = [m for m in report.modes if not m.observable]
     assert all(abs(complex(m.real, m.imag)) < 1e-6 for m in hidden)   # λ = 0 (twice)
     # with the cart position measured the pair is observable (same textbook example)
-    report = analyse_matrices(A, C, CART, ["theta", "x"], outputs=["x"])
+    report = analyze_matrices(A, C, CART, ["theta", "x"], outputs=["x"])
     assert report.verdict in ("observable", "weak")
     assert report.unobservable_dimension == 0
     # python-control's observability matrix has full rank for this case (reference library)
@@ -137,7 +137,7 @@ def test_repeated_eigenvalue_with_two_hidden_directions() -> None:
     # the output never sees (analytic); PBH flags both copies, the staircase gives dimension 2
     A = np.diag([-1.0, -1.0, -2.0])
     C = np.array([[0.0, 0.0, 1.0]])
-    report = analyse_matrices(A, C, ["a", "b", "c"], ["y"])
+    report = analyze_matrices(A, C, ["a", "b", "c"], ["y"])
     assert report.unobservable_dimension == 2
     assert report.verdict == "unobservable-detectable"
     assert sorted(m.observable for m in report.modes) == [False, False, True]
@@ -149,7 +149,7 @@ def test_jordan_block_seen_at_its_end() -> None:
     # a Jordan block (analytic); both copies show margin 0 at λ = −1
     A = np.array([[-1.0, 1.0, 0.0], [0.0, -1.0, 0.0], [0.0, 0.0, -2.0]])
     C = np.array([[0.0, 1.0, 1.0]])
-    report = analyse_matrices(A, C, ["a", "b", "c"], ["y"])
+    report = analyze_matrices(A, C, ["a", "b", "c"], ["y"])
     assert report.unobservable_dimension == 1
     assert report.unobservable_basis[0].components["a"] == pytest.approx(1.0, abs=1e-9)
     assert report.verdict == "unobservable-detectable"
@@ -162,7 +162,7 @@ def test_staircase_structure_with_several_outputs() -> None:
     # CZ a zero right block; dimension from python-control's observability matrix rank
     rng = np.random.default_rng(11)
     A, C = _random_system(rng, 6, 2, 2)
-    tol = default_tolerance(6) * pbh_normaliser(A, C)
+    tol = default_tolerance(6) * pbh_normalizer(A, C)
     stair = observability_staircase(A, C, tol)
     Z = stair.transform
     np.testing.assert_allclose(Z.T @ Z, np.eye(6), atol=1e-12)

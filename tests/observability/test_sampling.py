@@ -5,7 +5,7 @@ from __future__ import annotations
 import numpy as np
 import pytest
 
-from linobs.observability.analysis import analyse_matrices
+from linobs.observability.analysis import analyze_matrices
 from linobs.observability.report import ObservabilitySettings
 from linobs.observability.sampling import pathological_pairs
 
@@ -17,7 +17,7 @@ POSITION = np.array([[1.0, 0.0]])
 def _at(sample_time: float, A: np.ndarray = OSCILLATOR, C: np.ndarray = POSITION,
         outputs: list[str] | None = None):  # type: ignore[no-untyped-def]
     names = outputs or [f"y{i}" for i in range(C.shape[0])]
-    return analyse_matrices(A, C, ["q", "v"], names,
+    return analyze_matrices(A, C, ["q", "v"], names,
                             settings=ObservabilitySettings(sample_time=sample_time))
 
 
@@ -26,7 +26,7 @@ def test_oscillator_sampled_at_multiples_of_half_its_period(k: int) -> None:
     # analytic: Φ = e^{A Ts} with ωTs = kπ is ±I, so the position samples are ±q(0) and never
     # show the velocity; the modes ±jω differ by 2jω = k·2πj/Ts (Kalman, Ho & Narendra 1963)
     report = _at(k * np.pi / OMEGA)
-    continuous = analyse_matrices(OSCILLATOR, POSITION, ["q", "v"], ["y0"])
+    continuous = analyze_matrices(OSCILLATOR, POSITION, ["q", "v"], ["y0"])
     assert continuous.verdict == "observable"          # x = q, v = q' (analytic)
     assert report.sampling is not None and report.sampling.lost
     assert report.sampling.margin < 1e-12
@@ -61,7 +61,7 @@ def test_damped_pair_sampled_badly_is_detectable() -> None:
 
 def test_fast_sampling_margin_tends_to_the_continuous_margin() -> None:
     # delta form: (e^{λTs} − 1)/Ts → λ and (e^{ATs} − I)/Ts → A as Ts → 0 (analytic limit)
-    continuous = analyse_matrices(OSCILLATOR, POSITION, ["q", "v"], ["y0"])
+    continuous = analyze_matrices(OSCILLATOR, POSITION, ["q", "v"], ["y0"])
     report = _at(1e-6)
     assert report.sampling is not None
     assert report.sampling.margin == pytest.approx(continuous.margin, rel=1e-4)

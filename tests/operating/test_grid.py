@@ -1,4 +1,4 @@
-"""Operating grids: tensor products, scattered points, neighbours, continuation order, chunks."""
+"""Operating grids: tensor products, scattered points, neighbors, continuation order, chunks."""
 
 from __future__ import annotations
 
@@ -75,18 +75,18 @@ def test_grid_without_axes_is_one_point() -> None:
     grid = Grid.tensor([])
     # analytic: the empty product has one element
     assert len(grid) == 1 and grid.point(0) == {} and grid.continuation_order() == [0]
-    assert grid.neighbours(0) == [] and grid.chunks([0], 5) == [[0]]
+    assert grid.neighbors(0) == [] and grid.chunks([0], 5) == [[0]]
 
 
 @given(shapes)
 @settings(max_examples=40, deadline=None)
-def test_tensor_neighbours_are_unit_steps(shape: tuple[int, ...]) -> None:
+def test_tensor_neighbors_are_unit_steps(shape: tuple[int, ...]) -> None:
     grid = _tensor(shape)
     idx = np.array(list(itertools.product(*[range(n) for n in shape])))
     for i in range(len(grid)):
-        # analytic: lattice neighbours are the points at L1 index distance one
+        # analytic: lattice neighbors are the points at L1 index distance one
         brute = set(np.flatnonzero(np.abs(idx - idx[i]).sum(axis=1) == 1).tolist())
-        assert set(grid.neighbours(i)) == brute and len(grid.neighbours(i)) == len(brute)
+        assert set(grid.neighbors(i)) == brute and len(grid.neighbors(i)) == len(brute)
 
 
 # ------------------------------------------------------------------ continuation order
@@ -113,11 +113,11 @@ def test_serpentine_steps_change_one_index_by_one(shape: tuple[int, ...], data: 
     grid = _tensor(shape)
     slow = data.draw(st.lists(st.sampled_from(grid.names), unique=True, max_size=len(shape)))
     order = grid.continuation_order(slow=slow)
-    # common practice (boustrophedon / reflected Gray code): consecutive points are neighbours
+    # common practice (boustrophedon / reflected Gray code): consecutive points are neighbors
     _assert_unit_steps(grid, order)
     _assert_groups_contiguous(grid, order, slow)
     for a, b in itertools.pairwise(order):
-        assert b in grid.neighbours(a)
+        assert b in grid.neighbors(a)
 
 
 def test_serpentine_small_case_by_hand() -> None:
@@ -172,7 +172,7 @@ def _envelope(n: int = 60, seed: int = 3) -> Grid:
     return Grid.scattered(["soc", "i_cell", "t_amb"], np.column_stack([soc, current, temp]))
 
 
-def test_scattered_neighbours_match_brute_force() -> None:
+def test_scattered_neighbors_match_brute_force() -> None:
     grid = _envelope()
     pts = grid.points
     span = pts.max(axis=0) - pts.min(axis=0)
@@ -181,15 +181,15 @@ def test_scattered_neighbours_match_brute_force() -> None:
     np.fill_diagonal(dist, np.inf)
     k = 2 * grid.dims
     for i in range(len(grid)):
-        got = grid.neighbours(i)
+        got = grid.neighbors(i)
         assert len(got) == k and i not in got
         expected = np.argsort(dist[i], kind="stable")[:k]
         np.testing.assert_allclose(dist[i, got], dist[i, expected], rtol=1e-12)
     tiny = Grid.scattered(["a"], [[0.0], [1.0]])
-    assert tiny.neighbours(0) == [1]                          # fewer points than 2·dims
+    assert tiny.neighbors(0) == [1]                          # fewer points than 2·dims
 
 
-def test_scattered_walk_is_greedy_nearest_neighbour() -> None:
+def test_scattered_walk_is_greedy_nearest_neighbor() -> None:
     grid = _envelope()
     pts = grid.points
     lo, span = pts.min(axis=0), pts.max(axis=0) - pts.min(axis=0)

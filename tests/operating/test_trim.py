@@ -139,7 +139,7 @@ def test_continuation_costs_fewer_evaluations(four_tank) -> None:  # type: ignor
     carried = find_operating_point(four_tank, {"v1": 3.9, "v2": 3.8}, spec, continuation=path)
     for res in (first, cold, warm, carried):
         assert res.status == "converged"
-    # common practice: a neighbour's solution is a better start than the start values
+    # common practice: a neighbor's solution is a better start than the start values
     assert warm.evaluations < cold.evaluations
     assert carried.evaluations < warm.evaluations and carried.jacobians == 0
     # analytic: the flow balance

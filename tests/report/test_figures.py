@@ -102,7 +102,7 @@ def test_worst_verdict_wins_in_a_reduced_cell():
     np.testing.assert_allclose(marks.get_offsets(), [[1.0, 0.5]])
 
 
-def test_failed_points_are_grey_and_listed():
+def test_failed_points_are_gray_and_listed():
     pts, margins, verdicts = grid(shuffle=False)
     all_failed = (pts[:, 0] == 3.0) & (pts[:, 1] == 1.0)           # every c at one cell
     some_failed = (pts[:, 0] == 0.0) & (pts[:, 1] == 0.0) & (pts[:, 2] == 2.0)

@@ -212,7 +212,7 @@ def test_report_escapes_text_and_is_repeatable(stage_run: Path, tmp_path: Path) 
 @pytest.mark.slow
 def test_report_lists_refused_nodes_and_continuity_flags(stage_run: Path, tmp_path: Path) -> None:
     # the stage study refuses no node: edit a copy so that node 4 is refused (as the design
-    # stage records it) and its neighbour pair is flagged, then read the report back
+    # stage records it) and its neighbor pair is flagged, then read the report back
     copy = tmp_path / "run"
     shutil.copytree(stage_run, copy, ignore=shutil.ignore_patterns("schedule_gains.*",
                                                                    "report.html"))
@@ -231,7 +231,7 @@ def test_report_lists_refused_nodes_and_continuity_flags(stage_run: Path, tmp_pa
     sched = page.sections["schedule"]
     assert "mode 0.99 is unobservable" in sched and "v1 = 3, v2 = 3" in sched
     assert "0.99" in sched and "0.5−0.25j" in sched
-    assert "refused neighbour" in sched and "v1: 2 → 3" in sched and "verdict change" in sched
+    assert "refused neighbor" in sched and "v1: 2 → 3" in sched and "verdict change" in sched
     svg = (copy / "figures" / "schedule_gains.svg").read_text(encoding="utf-8")
     assert 'id="refused-cell' in svg                  # the redrawn figure marks the node
 
